@@ -1,0 +1,253 @@
+"""Case: what to solve. Read from a TOML case file or built in Python.
+
+The case file schema (documented in the README) is fieldsection's own::
+
+    title = "..."
+    [geometry]      script, length_unit, [geometry.parameters]
+    [regions]       physical surface name -> material name
+    [materials.X]   case-defined materials
+    [electrodes]    physical curve/surface name -> potential ("12 kV", or { potential = ... })
+    [boundary]      outer = "grounded" | "insulated"
+    [hotspots]      fraction = 0.5
+    [mesh]          size, near_electrodes, element_order, curved, [mesh.region_sizes]
+
+Everything here is validated without touching the geometry; names are checked against the
+geometry's physical groups in the mesh stage.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any, Callable, Mapping
+
+from .errors import CaseFileError, FieldSectionError
+from .materials import Material, lookup_material, material_from_mapping
+from .units import to_si
+
+OUTER_BOUNDARY_KINDS = {
+    "grounded": "held at 0 V (a grounded enclosure)",
+    "insulated": "zero normal D (a symmetry line or an insulated far wall)",
+}
+ELEMENT_ORDERS = (1, 2)
+DEFAULT_HOTSPOT_FRACTION = 0.5
+
+
+@dataclass(frozen=True)
+class ScriptGeometry:
+    """A gmsh ``.geo`` script; ``parameters`` override its ``DefineConstant`` numbers."""
+
+    path: Path
+    parameters: Mapping[str, float] = field(default_factory=dict)
+    length_unit_m: float = 1.0  # metres per script length unit
+    trusted: bool = False  # allow commands that run programs (System, SystemCall, ...)
+
+
+@dataclass(frozen=True)
+class BuilderGeometry:
+    """A geometry built in Python: ``build(geom)`` receives a ``pygmsh.occ.Geometry``.
+
+    It must add named physical groups (``geom.add_physical(entities, label=...)``).
+    """
+
+    build: Callable[[Any], None]
+    length_unit_m: float = 1.0
+
+
+@dataclass(frozen=True)
+class MeshSettings:
+    """Mesh sizes in metres; ``None`` leaves the choice to the script and gmsh."""
+
+    size: float | None = None
+    near_electrodes: float | None = None
+    region_sizes: Mapping[str, float] = field(default_factory=dict)
+    element_order: int = 2
+    curved: bool = True  # second-order geometry (nodes on arcs) when element_order >= 2
+
+    def __post_init__(self) -> None:
+        if self.element_order not in ELEMENT_ORDERS:
+            raise CaseFileError(
+                f"mesh.element_order = {self.element_order!r}: use one of {ELEMENT_ORDERS} (2 is the default)"
+            )
+        for label, value in [("mesh.size", self.size), ("mesh.near_electrodes", self.near_electrodes)] + [
+            (f"mesh.region_sizes.{k}", v) for k, v in self.region_sizes.items()
+        ]:
+            if value is not None and not (math.isfinite(value) and value > 0):
+                raise CaseFileError(f"{label} = {value!r}: a mesh size must be a positive length such as '0.5 mm'")
+
+
+@dataclass(frozen=True)
+class Case:
+    """Everything needed to mesh, solve and report one cross-section. SI units throughout."""
+
+    name: str
+    geometry: ScriptGeometry | BuilderGeometry
+    regions: Mapping[str, Material]
+    electrodes: Mapping[str, float]
+    outer_boundary: str = "grounded"
+    hotspot_fraction: float = DEFAULT_HOTSPOT_FRACTION
+    mesh: MeshSettings = field(default_factory=MeshSettings)
+    title: str = ""
+    source_file: Path | None = None
+
+    def __post_init__(self) -> None:
+        if not self.regions:
+            raise CaseFileError(f"case {self.name!r}: no [regions]; map every physical surface to a material")
+        if not self.electrodes:
+            raise CaseFileError(
+                f"case {self.name!r}: no [electrodes]; give at least one physical curve or surface a potential"
+            )
+        both = sorted(set(self.regions) & set(self.electrodes))
+        if both:
+            raise CaseFileError(
+                f"{both[0]!r} is both a dielectric region and an electrode; a conductor region is an "
+                "electrode only: remove it from [regions]"
+            )
+        for name, potential in self.electrodes.items():
+            if not math.isfinite(potential):
+                raise CaseFileError(f"electrodes.{name}: potential {potential!r} is not finite")
+        if self.outer_boundary not in OUTER_BOUNDARY_KINDS:
+            raise CaseFileError(
+                f"boundary.outer = {self.outer_boundary!r}: use one of {', '.join(map(repr, OUTER_BOUNDARY_KINDS))}"
+            )
+        f = self.hotspot_fraction
+        if isinstance(f, bool) or not isinstance(f, (int, float)) or not (0 < f <= 1):
+            raise CaseFileError(
+                f"hotspots.fraction = {f!r}: must be in (0, 1], the share of a material's dielectric "
+                "strength above which an element is flagged (e.g. 0.5)"
+            )
+        object.__setattr__(self, "regions", MappingProxyType(dict(self.regions)))
+        object.__setattr__(self, "electrodes", MappingProxyType(dict(self.electrodes)))
+
+
+_TOP_KEYS = {"title", "geometry", "regions", "materials", "electrodes", "boundary", "hotspots", "mesh"}
+
+
+def _table(data: Mapping[str, Any], key: str, where: str) -> Mapping[str, Any]:
+    value = data.get(key, {})
+    if not isinstance(value, Mapping):
+        raise CaseFileError(f"{where}: [{key}] must be a table, got {type(value).__name__}")
+    return value
+
+
+def _check_keys(table: Mapping[str, Any], allowed: set[str], where: str) -> None:
+    unknown = sorted(set(table) - allowed)
+    if unknown:
+        raise CaseFileError(f"{where}: unknown key {unknown[0]!r}; allowed keys: {', '.join(sorted(allowed))}")
+
+
+def _script_parameter(name: str, value: Any, length_unit_m: float) -> float:
+    """A script parameter: a plain number, or a length converted into the script's unit."""
+    if isinstance(value, bool):
+        raise CaseFileError(f"geometry.parameters.{name}: a boolean cannot be a gmsh number")
+    if isinstance(value, (int, float)):
+        return float(value)
+    return to_si(value, "length", f"geometry.parameters.{name}") / length_unit_m
+
+
+def _potential(name: str, value: Any) -> float:
+    where = f"electrodes.{name}"
+    if isinstance(value, Mapping):
+        _check_keys(value, {"potential"}, where)
+        if "potential" not in value:
+            raise CaseFileError(f"{where}: give its potential, e.g. {name} = {{ potential = '1 kV' }}")
+        value = value["potential"]
+    return to_si(value, "voltage", where)
+
+
+def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
+    """Read and validate a TOML case file.
+
+    The geometry script is looked up beside the case file, then in a ``geometries/`` folder
+    beside it or one level up.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise CaseFileError(f"case file {str(path)!r} not found; give the path of a .toml case file")
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise CaseFileError(
+            f"case file {path.name}: {exc} (each key may appear once; an electrode gets exactly one potential)"
+        ) from None
+    except UnicodeDecodeError:
+        raise CaseFileError(f"case file {path.name}: not UTF-8 text; save it as UTF-8 TOML") from None
+    where = path.name
+    _check_keys(data, _TOP_KEYS, where)
+
+    geometry_table = _table(data, "geometry", where)
+    _check_keys(geometry_table, {"script", "length_unit", "parameters"}, f"{where} [geometry]")
+    if "script" not in geometry_table:
+        raise CaseFileError(f"{where}: [geometry] needs script = \"name.geo\"")
+    length_unit_m = to_si(f"1 {geometry_table.get('length_unit', 'm')}", "length", "geometry.length_unit")
+    script = _find_script(str(geometry_table["script"]), path.parent)
+    parameters = {
+        str(k): _script_parameter(str(k), v, length_unit_m)
+        for k, v in _table(geometry_table, "parameters", f"{where} [geometry]").items()
+    }
+
+    case_materials: dict[str, Material] = {}
+    for name, entry in _table(data, "materials", where).items():
+        if not isinstance(entry, Mapping):
+            raise CaseFileError(f"{where}: [materials.{name}] must be a table with relative_permittivity etc.")
+        case_materials[name] = material_from_mapping(name, entry, f"materials.{name}")
+
+    regions: dict[str, Material] = {}
+    for region, material_name in _table(data, "regions", where).items():
+        if not isinstance(material_name, str):
+            raise CaseFileError(f"regions.{region}: give a material name, got {material_name!r}")
+        try:
+            regions[region] = lookup_material(material_name, case_materials)
+        except FieldSectionError as exc:
+            raise CaseFileError(f"regions.{region}: {exc}") from None
+
+    electrodes = {str(k): _potential(str(k), v) for k, v in _table(data, "electrodes", where).items()}
+
+    boundary = _table(data, "boundary", where)
+    _check_keys(boundary, {"outer"}, f"{where} [boundary]")
+    hotspots = _table(data, "hotspots", where)
+    _check_keys(hotspots, {"fraction"}, f"{where} [hotspots]")
+    mesh_table = _table(data, "mesh", where)
+    _check_keys(
+        mesh_table, {"size", "near_electrodes", "region_sizes", "element_order", "curved"}, f"{where} [mesh]"
+    )
+
+    def optional_length(key: str) -> float | None:
+        return None if key not in mesh_table else to_si(mesh_table[key], "length", f"mesh.{key}")
+
+    mesh = MeshSettings(
+        size=optional_length("size"),
+        near_electrodes=optional_length("near_electrodes"),
+        region_sizes={
+            str(k): to_si(v, "length", f"mesh.region_sizes.{k}")
+            for k, v in _table(mesh_table, "region_sizes", f"{where} [mesh]").items()
+        },
+        element_order=mesh_table.get("element_order", 2),
+        curved=bool(mesh_table.get("curved", True)),
+    )
+    title = data.get("title", "")
+    return Case(
+        name=path.stem,
+        title=str(title),
+        geometry=ScriptGeometry(script, parameters, length_unit_m, trusted=trust_script),
+        regions=regions,
+        electrodes=electrodes,
+        outer_boundary=str(boundary.get("outer", "grounded")),
+        hotspot_fraction=hotspots.get("fraction", DEFAULT_HOTSPOT_FRACTION),
+        mesh=mesh,
+        source_file=path.resolve(),
+    )
+
+
+def _find_script(name: str, case_dir: Path) -> Path:
+    candidates = [case_dir / name, case_dir / "geometries" / name, case_dir.parent / "geometries" / name]
+    for candidate in candidates:
+        if candidate.is_file():
+            return candidate.resolve()
+    tried = ", ".join(str(c) for c in candidates)
+    raise CaseFileError(
+        f"geometry script {name!r} not found (looked in: {tried}); put it beside the case file or in geometries/"
+    )

@@ -1,0 +1,99 @@
+"""Command line: ``fieldsection run CASE`` and ``fieldsection materials``.
+
+Only this module prints and sets exit codes: 0 success, 2 bad input (a one-line message naming
+the culprit and the fix), 1 an unexpected failure.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from . import __version__
+from .errors import FieldSectionError
+
+EXIT_OK, EXIT_FAILURE, EXIT_BAD_INPUT = 0, 1, 2
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="fieldsection",
+        description="Electric field, capacitance, hotspots and bound charge of 2D insulation cross-sections.",
+    )
+    parser.add_argument("--version", action="version", version=f"fieldsection {__version__}")
+    verbs = parser.add_subparsers(dest="verb", required=True)
+    run = verbs.add_parser("run", help="solve a case file and write reports/<case>/")
+    run.add_argument("case", type=Path, help="TOML case file")
+    run.add_argument("--reports", type=Path, default=Path("reports"), help="folder for reports (default: reports)")
+    run.add_argument("--no-figures", action="store_true", help="skip the PNG figures (faster on big meshes)")
+    run.add_argument("--trust-script", action="store_true",
+                     help="allow gmsh commands that run programs (System, SystemCall, ...) in the geometry script")
+    run.add_argument("--quiet", action="store_true", help="no progress bar and no summary")
+    verbs.add_parser("materials", help="list the shipped materials table")
+    return parser
+
+
+def _run(args: argparse.Namespace) -> int:
+    from tqdm import tqdm
+
+    from .case import load_case
+    from .pipeline import STAGES, analyse
+    from .report import write_report
+
+    case = load_case(args.case, trust_script=args.trust_script)
+    total = len(STAGES) + 6  # computing stages, four figures, the VTU file
+    with tqdm(total=total, disable=args.quiet, unit="stage", desc=case.name, file=sys.stderr) as bar:
+        def step(name: str) -> None:  # called as each stage starts
+            bar.set_postfix_str(name)
+            bar.update(1)
+
+        result = analyse(case, on_stage=step)
+        folder = write_report(result, args.reports, with_figures=not args.no_figures, on_step=step)
+        bar.update(total - bar.n)
+    if not args.quiet:
+        _summary(result, folder)
+    return EXIT_OK
+
+
+def _summary(result, folder: Path) -> None:
+    cap = result.capacitance
+    print(f"report: {folder}/report.html")
+    if cap.two_level is not None:
+        t = cap.two_level
+        print(f"capacitance {', '.join(t.high)} | {', '.join(t.low)}: {t.from_energy * 1e12:.6g} pF/m "
+              f"(charge vs energy {t.relative_difference:.1e})")
+    for peak in result.hotspots.region_peaks:
+        share = "" if peak.utilisation is None else f", {100 * peak.utilisation:.1f} % of strength"
+        print(f"peak |E| in {peak.region} ({peak.material}): {peak.peak_E * 1e-6:.4g} kV/mm{share}")
+    print(f"hotspots at >= {100 * result.case.hotspot_fraction:.0f} % of strength: {len(result.hotspots.hotspots)}")
+    print("a design aid, not a certification: margins and partial-discharge tests remain the designer's duty")
+
+
+def _materials() -> int:
+    from .materials import shipped_materials
+
+    print(f"{'name':20s} {'kind':7s} {'eps_r':>8s} {'strength (kV/mm)':>17s} {'tan delta':>10s}")
+    for m in shipped_materials().values():
+        strength = "unknown" if m.dielectric_strength is None else f"{m.dielectric_strength * 1e-6:.4g}"
+        tan_d = "-" if m.loss_tangent is None else f"{m.loss_tangent:.2g}"
+        print(f"{m.name:20s} {m.kind:7s} {m.relative_permittivity:8.4g} {strength:>17s} {tan_d:>10s}")
+    return EXIT_OK
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = _parser().parse_args(argv)
+    try:
+        if args.verb == "run":
+            return _run(args)
+        return _materials()
+    except FieldSectionError as exc:
+        print(f"fieldsection: error: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("fieldsection: interrupted; no report was written", file=sys.stderr)
+        return EXIT_FAILURE
+
+
+if __name__ == "__main__":
+    sys.exit(main())

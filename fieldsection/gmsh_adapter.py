@@ -1,0 +1,277 @@
+"""The only module that talks to gmsh (and to pygmsh, which drives gmsh).
+
+It loads a geometry (a screened ``.geo`` script or a pygmsh builder), applies mesh sizes,
+meshes in 2D and returns plain numpy arrays with the named physical groups. No files are
+written: the arrays are read straight from gmsh's API.
+"""
+
+from __future__ import annotations
+
+import math
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from typing import Iterator, Mapping
+
+import numpy as np
+
+from .case import BuilderGeometry, MeshSettings, ScriptGeometry
+from .errors import GeometryError, MeshError
+from .geometry import screen_script
+
+# gmsh element type codes (see gmsh's documentation, "MSH file format")
+_LINE2, _LINE3, _TRI3, _TRI6 = 1, 8, 2, 9
+
+
+@dataclass(frozen=True)
+class RawMesh:
+    """Arrays as gmsh produced them, converted to SI metres and 0-based node indices.
+
+    ``triangles`` has 3 corner columns, then (for curved meshes) 3 mid-edge columns ordered
+    as edges (0,1), (1,2), (2,0). ``surface_groups`` maps a physical surface name to triangle
+    rows; ``curve_groups`` maps a physical curve name to its segments' corner node pairs.
+    """
+
+    points: np.ndarray
+    triangles: np.ndarray
+    surface_groups: Mapping[str, np.ndarray]
+    curve_groups: Mapping[str, np.ndarray]
+    warnings: tuple[str, ...] = field(default=())
+
+    def __post_init__(self) -> None:
+        if self.points.ndim != 2 or self.points.shape[1] != 2:
+            raise MeshError(f"points must have shape (n, 2), got {self.points.shape}")
+        if self.triangles.ndim != 2 or self.triangles.shape[1] not in (3, 6):
+            raise MeshError(f"triangles must have 3 or 6 columns, got shape {self.triangles.shape}")
+
+
+@contextmanager
+def _gmsh_session() -> Iterator[object]:
+    import gmsh
+
+    if gmsh.isInitialized():  # a builder (pygmsh) already opened the session
+        yield gmsh
+        return
+    gmsh.initialize(interruptible=False)
+    try:
+        yield gmsh
+    finally:
+        gmsh.finalize()
+
+
+def _quiet(gmsh) -> None:
+    gmsh.option.setNumber("General.Terminal", 0)
+    gmsh.logger.start()
+
+
+def _gmsh_messages(gmsh, level: str) -> list[str]:
+    return [m.split(":", 1)[1].strip() for m in gmsh.logger.get() if m.startswith(level + ":")]
+
+
+def mesh_geometry(
+    geometry: ScriptGeometry | BuilderGeometry,
+    settings: MeshSettings,
+    electrode_names: frozenset[str] = frozenset(),
+) -> RawMesh:
+    """Load ``geometry`` into gmsh, mesh it in 2D and return the arrays."""
+    if isinstance(geometry, ScriptGeometry):
+        declared = screen_script(geometry.path, geometry.trusted)
+        undeclared = sorted(set(geometry.parameters) - declared)
+        if undeclared:
+            raise GeometryError(
+                f"geometry parameter {undeclared[0]!r} is not declared in {geometry.path.name}; declare it "
+                f"there as DefineConstant[ {undeclared[0]} = <default> ]; so the case can set it"
+            )
+        with _gmsh_session() as gmsh:
+            _quiet(gmsh)
+            gmsh.model.add("section")
+            for name, value in geometry.parameters.items():
+                gmsh.parser.setNumber(name, [float(value)])
+            try:
+                gmsh.merge(str(geometry.path))
+            except Exception as exc:  # gmsh raises a bare Exception carrying its own message
+                raise GeometryError(f"gmsh could not read the geometry script: {exc}; fix the script") from None
+            errors = _gmsh_messages(gmsh, "Error")
+            if errors:
+                raise GeometryError(f"gmsh reported an error in the geometry script: {errors[0]}; fix the script")
+            return _mesh_current_model(gmsh, settings, geometry.length_unit_m, electrode_names)
+    if isinstance(geometry, BuilderGeometry):
+        import pygmsh
+
+        with pygmsh.occ.Geometry() as geom:
+            import gmsh
+
+            _quiet(gmsh)
+            try:
+                geometry.build(geom)
+            except Exception as exc:
+                raise GeometryError(f"the geometry builder failed: {type(exc).__name__}: {exc}") from exc
+            _commit_pygmsh_queues(gmsh, geom)
+            return _mesh_current_model(gmsh, settings, geometry.length_unit_m, electrode_names)
+    raise TypeError(f"unsupported geometry source {type(geometry).__name__}")
+
+
+def _commit_pygmsh_queues(gmsh, geom) -> None:
+    """Do what pygmsh does before meshing: synchronise and create the queued groups and sizes."""
+    geom.synchronize()
+    for item in geom._AFTER_SYNC_QUEUE:
+        item.exec()
+    for item, host in geom._EMBED_QUEUE:
+        gmsh.model.mesh.embed(item.dim, [item._id], host.dim, host._id)
+    for item, size in geom._SIZE_QUEUE:
+        gmsh.model.mesh.setSize(gmsh.model.getBoundary(item.dim_tags, False, False, True), size)
+    for entities, label in geom._PHYSICAL_QUEUE:
+        if label is None:
+            raise GeometryError("the geometry builder added a physical group without a label; name every group")
+        tag = gmsh.model.addPhysicalGroup(entities[0].dim, [e._id for e in entities])
+        gmsh.model.setPhysicalName(entities[0].dim, tag, label)
+
+
+def _physical_groups(gmsh, dim: int) -> dict[str, list[int]]:
+    groups: dict[str, list[int]] = {}
+    for _, tag in gmsh.model.getPhysicalGroups(dim):
+        name = gmsh.model.getPhysicalName(dim, tag)
+        if not name:
+            kind = "Surface" if dim == 2 else "Curve" if dim == 1 else "Point"
+            raise GeometryError(
+                f"physical {kind.lower()} group {tag} has no name; name it, e.g. Physical {kind}(\"my_name\") = {{...}};"
+            )
+        if name in groups:
+            raise GeometryError(f"physical group name {name!r} is used twice for dimension {dim}; rename one")
+        groups[name] = [int(e) for e in gmsh.model.getEntitiesForPhysicalGroup(dim, tag)]
+    return groups
+
+
+def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, curves: dict, electrodes) -> None:
+    """Translate the case's mesh sizes (metres) into gmsh options and size fields."""
+    if settings.size is not None:
+        gmsh.option.setNumber("Mesh.MeshSizeMax", settings.size / scale)
+    fields: list[int] = []
+    for region, size in settings.region_sizes.items():
+        if region not in surfaces:
+            raise GeometryError(
+                f"mesh.region_sizes names {region!r}, which is not a physical surface of the geometry; "
+                f"known surfaces: {', '.join(sorted(surfaces)) or 'none'}"
+            )
+        fid = gmsh.model.mesh.field.add("Constant")
+        gmsh.model.mesh.field.setNumbers(fid, "SurfacesList", surfaces[region])
+        gmsh.model.mesh.field.setNumber(fid, "VIn", size / scale)
+        gmsh.model.mesh.field.setNumber(fid, "IncludeBoundary", 1)
+        fields.append(fid)
+    if settings.near_electrodes is not None and electrodes:
+        electrode_curves: set[int] = set()
+        for name in electrodes:
+            if name in curves:
+                electrode_curves.update(curves[name])
+            elif name in surfaces:
+                for dim, tag in gmsh.model.getBoundary([(2, s) for s in surfaces[name]], False, False, False):
+                    electrode_curves.add(abs(tag))
+        near = settings.near_electrodes / scale
+        far = (settings.size / scale) if settings.size is not None else 10 * near
+        distance = gmsh.model.mesh.field.add("Distance")
+        gmsh.model.mesh.field.setNumbers(distance, "CurvesList", sorted(electrode_curves))
+        gmsh.model.mesh.field.setNumber(distance, "Sampling", 200)
+        threshold = gmsh.model.mesh.field.add("Threshold")
+        gmsh.model.mesh.field.setNumber(threshold, "InField", distance)
+        gmsh.model.mesh.field.setNumber(threshold, "SizeMin", near)
+        gmsh.model.mesh.field.setNumber(threshold, "SizeMax", max(far, near))
+        gmsh.model.mesh.field.setNumber(threshold, "DistMin", near)
+        gmsh.model.mesh.field.setNumber(threshold, "DistMax", max(far, near) * 4)
+        fields.append(threshold)
+    if fields:
+        combined = gmsh.model.mesh.field.add("Min")
+        gmsh.model.mesh.field.setNumbers(combined, "FieldsList", fields)
+        gmsh.model.mesh.field.setAsBackgroundMesh(combined)
+
+
+def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_names) -> RawMesh:
+    surfaces = _physical_groups(gmsh, 2)
+    curves = _physical_groups(gmsh, 1)
+    if not gmsh.model.getEntities(2):
+        raise GeometryError("the geometry has no surfaces; a cross-section needs at least one Plane Surface")
+    grouped = {e for tags in surfaces.values() for e in tags}
+    loose = sorted({tag for _, tag in gmsh.model.getEntities(2)} - grouped)
+    if loose:
+        raise GeometryError(
+            f"surface {loose[0]} of the geometry belongs to no physical surface; add it to one, e.g. "
+            f"Physical Surface(\"my_region\") = {{{loose[0]}}}; and map it in [regions] (or make it a hole)"
+        )
+    _apply_sizes(gmsh, settings, scale, surfaces, curves, electrode_names & (set(surfaces) | set(curves)))
+    try:
+        gmsh.model.mesh.generate(2)
+        curved = settings.curved and settings.element_order >= 2
+        if curved:
+            gmsh.model.mesh.setOrder(2)
+    except Exception as exc:
+        raise MeshError(f"gmsh could not mesh the geometry: {exc}; check for overlapping or open curves") from None
+    errors = _gmsh_messages(gmsh, "Error")
+    if errors:
+        raise MeshError(f"gmsh reported a meshing error: {errors[0]}; check the geometry")
+    warnings = tuple(_gmsh_messages(gmsh, "Warning"))
+
+    node_tags, coords, _ = gmsh.model.mesh.getNodes()
+    node_tags = node_tags.astype(np.int64)
+    coords = coords.reshape(-1, 3)
+    if coords.size == 0:
+        raise MeshError("gmsh produced no nodes; check the mesh sizes")
+    extent = np.ptp(coords[:, :2], axis=0).max()
+    if np.abs(coords[:, 2]).max() > 1e-9 * max(extent, 1.0):
+        raise GeometryError("the geometry is not in the z = 0 plane; draw the cross-section in x-y")
+    index_of = np.full(node_tags.max() + 1, -1, dtype=np.int64)
+    index_of[node_tags] = np.arange(node_tags.size)
+
+    tri_blocks: list[np.ndarray] = []
+    entity_rows: dict[int, np.ndarray] = {}
+    start = 0
+    want = _TRI6 if curved else _TRI3
+    width = 6 if curved else 3
+    for _, entity in gmsh.model.getEntities(2):
+        types, _, nodes = gmsh.model.mesh.getElements(2, entity)
+        block = np.zeros((0, width), dtype=np.int64)
+        for etype, enodes in zip(types, nodes):
+            if etype != want:
+                raise MeshError(
+                    f"surface {entity} was meshed with gmsh element type {etype}; only triangles are supported "
+                    "(remove Recombine / quadrangle settings from the script)"
+                )
+            block = index_of[enodes.astype(np.int64)].reshape(-1, width)
+        tri_blocks.append(block)
+        entity_rows[entity] = np.arange(start, start + len(block))
+        start += len(block)
+    triangles = np.concatenate(tri_blocks) if tri_blocks else np.zeros((0, width), dtype=np.int64)
+    if len(triangles) == 0:
+        raise MeshError("gmsh produced no triangles; check the mesh sizes and the surfaces")
+
+    surface_groups = {
+        name: np.concatenate([entity_rows[e] for e in tags]) if tags else np.zeros(0, dtype=np.int64)
+        for name, tags in surfaces.items()
+    }
+    curve_groups: dict[str, np.ndarray] = {}
+    for name, tags in curves.items():
+        segments = []
+        for entity in tags:
+            types, _, nodes = gmsh.model.mesh.getElements(1, entity)
+            for etype, enodes in zip(types, nodes):
+                per = 3 if etype == _LINE3 else 2
+                if etype not in (_LINE2, _LINE3):
+                    continue
+                segments.append(index_of[enodes.astype(np.int64)].reshape(-1, per)[:, :2])
+        curve_groups[name] = np.concatenate(segments) if segments else np.zeros((0, 2), dtype=np.int64)
+    for name, rows in {**surface_groups, **curve_groups}.items():
+        if len(rows) == 0:
+            raise MeshError(f"physical group {name!r} has no mesh elements; check which entities it lists")
+
+    # compact node numbering: drop nodes that belong to no triangle (e.g. unused geometry points)
+    used = np.unique(triangles)
+    if used.size != len(coords):
+        remap = np.full(len(coords), -1, dtype=np.int64)
+        remap[used] = np.arange(used.size)
+        coords = coords[used]
+        triangles = remap[triangles]
+        curve_groups = {k: remap[v] for k, v in curve_groups.items()}
+        for name, segs in curve_groups.items():
+            if (segs < 0).any():
+                raise MeshError(f"physical curve {name!r} has nodes that lie on no triangle; it must bound a surface")
+    points = np.ascontiguousarray(coords[:, :2] * scale, dtype=np.float64)
+    if not math.isfinite(float(points.sum())):
+        raise MeshError("gmsh returned non-finite node coordinates")
+    return RawMesh(points, triangles, surface_groups, curve_groups, warnings)

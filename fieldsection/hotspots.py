@@ -1,0 +1,112 @@
+"""Hotspots: where |E| approaches a material's dielectric strength.
+
+Every dielectric element whose peak |E| is at least ``fraction`` x its material's strength is
+flagged; flagged elements of the same region that share an edge form one hotspot region.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+from scipy.sparse.csgraph import connected_components
+from scipy.spatial import cKDTree
+
+from .fields import ElementFields
+from .problem import AssembledProblem
+
+
+@dataclass(frozen=True)
+class RegionPeak:
+    """Peak |E| of one dielectric region, whether or not it is flagged."""
+
+    region: str
+    material: str
+    peak_E: float  # V/m
+    location: tuple[float, float]  # m
+    strength: float | None  # V/m
+    utilisation: float | None  # peak_E / strength
+
+
+@dataclass(frozen=True)
+class Hotspot:
+    region: str
+    material: str
+    peak_E: float  # V/m
+    location: tuple[float, float]  # m
+    area: float  # m^2
+    n_elements: int
+    utilisation: float  # peak_E / strength
+    nearest_electrode: str
+    distance_to_electrode: float  # m
+    elements: np.ndarray
+
+
+@dataclass(frozen=True)
+class HotspotResult:
+    fraction: float
+    region_peaks: tuple[RegionPeak, ...]
+    hotspots: tuple[Hotspot, ...]  # sorted by utilisation, highest first
+    utilisation: np.ndarray  # per element, NaN where no strength is known or not a dielectric
+
+
+def find_hotspots(problem: AssembledProblem, fields: ElementFields, fraction: float) -> HotspotResult:
+    section = problem.section
+    mesh = section.mesh
+    region = section.region_of_element
+    names = section.region_names
+    peak = fields.element_peak_E
+    magnitude = fields.E_magnitude
+    peak_vertex = mesh.t[np.argmax(magnitude, axis=1), np.arange(mesh.nelements)]
+
+    strength = np.full(mesh.nelements, np.nan)
+    for name, material in problem.material_of_region.items():
+        if material.dielectric_strength is not None:
+            strength[section.elements_of(name)] = material.dielectric_strength
+    strength[~problem.dielectric] = np.nan
+    utilisation = peak / strength
+
+    peaks = []
+    for name, material in problem.material_of_region.items():
+        elements = section.elements_of(name)
+        k = elements[np.argmax(peak[elements])]
+        s = material.dielectric_strength
+        peaks.append(RegionPeak(name, material.name, float(peak[k]), tuple(mesh.p[:, peak_vertex[k]]), s,
+                                None if s is None else float(peak[k] / s)))
+
+    flagged = np.nan_to_num(utilisation, nan=0.0) >= fraction
+    hotspots: list[Hotspot] = []
+    if flagged.any():
+        a, b = mesh.f2t
+        link = (a >= 0) & (b >= 0)
+        a, b = a[link], b[link]
+        link = flagged[a] & flagged[b] & (region[a] == region[b])
+        n = mesh.nelements
+        graph = sp.coo_matrix((np.ones(link.sum()), (a[link], b[link])), shape=(n, n))
+        _, component = connected_components(graph, directed=False)
+        flagged_idx = np.flatnonzero(flagged)
+        groups = component[flagged_idx]
+        order = np.argsort(groups, kind="stable")
+        split = np.flatnonzero(np.diff(groups[order])) + 1
+        trees = [(c.name, cKDTree(mesh.p[:, mesh.facets[:, c.facets].ravel()].T))
+                 for c in problem.conductors if c.facets.size]
+        areas = _areas(mesh)
+        for members in np.split(flagged_idx[order], split):
+            k = members[np.argmax(utilisation[members])]
+            where = mesh.p[:, peak_vertex[k]]
+            nearest, distance = min(((name, float(tree.query(where)[0])) for name, tree in trees),
+                                    key=lambda item: item[1], default=("none", float("nan")))
+            material = problem.material_of_region[names[region[k]]]
+            hotspots.append(Hotspot(names[region[k]], material.name, float(peak[k]), (float(where[0]), float(where[1])),
+                                    float(areas[members].sum()), int(members.size), float(utilisation[k]),
+                                    nearest, distance, members))
+        hotspots.sort(key=lambda h: -h.utilisation)
+    return HotspotResult(fraction, tuple(peaks), tuple(hotspots), utilisation)
+
+
+def _areas(mesh) -> np.ndarray:
+    p, t = mesh.p, mesh.t
+    d1 = p[:, t[1]] - p[:, t[0]]
+    d2 = p[:, t[2]] - p[:, t[0]]
+    return 0.5 * np.abs(d1[0] * d2[1] - d1[1] * d2[0])

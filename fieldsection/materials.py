@@ -1,0 +1,127 @@
+"""Dielectric materials: the shipped table and case-defined materials."""
+
+from __future__ import annotations
+
+import difflib
+import math
+import tomllib
+from dataclasses import dataclass
+from functools import lru_cache
+from importlib import resources
+from typing import Any, Mapping
+
+from .errors import MaterialError
+from .units import to_si
+
+MATERIAL_KINDS = ("gas", "liquid", "solid")
+
+
+@dataclass(frozen=True)
+class Material:
+    """A linear, isotropic dielectric.
+
+    ``dielectric_strength`` is in V/m (SI); ``None`` means unknown, and the material is then
+    left out of the hotspot screening (the report says so).
+    """
+
+    name: str
+    relative_permittivity: float
+    dielectric_strength: float | None
+    kind: str = "solid"
+    loss_tangent: float | None = None
+    source: str = ""
+
+    def __post_init__(self) -> None:
+        er = self.relative_permittivity
+        if not (isinstance(er, (int, float)) and math.isfinite(er) and er > 0):
+            raise MaterialError(
+                f"material {self.name!r}: relative permittivity {er!r} must be a positive number "
+                "(vacuum is 1; a non-positive value has no physical meaning in electrostatics)"
+            )
+        if er < 1:
+            raise MaterialError(
+                f"material {self.name!r}: relative permittivity {er} is below 1, which no passive "
+                "dielectric has in electrostatics; check the value"
+            )
+        strength = self.dielectric_strength
+        if strength is not None and not (math.isfinite(strength) and strength > 0):
+            raise MaterialError(
+                f"material {self.name!r}: dielectric strength {strength!r} V/m must be positive, or omit it"
+            )
+        if self.kind not in MATERIAL_KINDS:
+            raise MaterialError(
+                f"material {self.name!r}: kind {self.kind!r} is not one of {', '.join(MATERIAL_KINDS)}"
+            )
+        tan_d = self.loss_tangent
+        if tan_d is not None and not (math.isfinite(tan_d) and tan_d >= 0):
+            raise MaterialError(f"material {self.name!r}: loss tangent {tan_d!r} must be >= 0, or omit it")
+
+
+_ALLOWED_KEYS = {
+    "kind",
+    "relative_permittivity",
+    "dielectric_strength",
+    "dielectric_strength_kV_per_mm",
+    "loss_tangent",
+    "source",
+}
+
+
+def material_from_mapping(name: str, entry: Mapping[str, Any], where: str) -> Material:
+    """Build a :class:`Material` from a TOML table; ``where`` prefixes error messages."""
+    unknown = set(entry) - _ALLOWED_KEYS
+    if unknown:
+        raise MaterialError(
+            f"{where}: unknown key(s) {sorted(unknown)}; allowed: {sorted(_ALLOWED_KEYS)}"
+        )
+    if "relative_permittivity" not in entry:
+        raise MaterialError(f"{where}: 'relative_permittivity' is required")
+    er = entry["relative_permittivity"]
+    if isinstance(er, bool) or not isinstance(er, (int, float)):
+        raise MaterialError(f"{where}: relative_permittivity must be a number, got {er!r}")
+    strength: float | None = None
+    if "dielectric_strength" in entry and "dielectric_strength_kV_per_mm" in entry:
+        raise MaterialError(f"{where}: give either dielectric_strength or dielectric_strength_kV_per_mm, not both")
+    if "dielectric_strength" in entry:
+        strength = to_si(entry["dielectric_strength"], "field", f"{where}.dielectric_strength")
+    elif "dielectric_strength_kV_per_mm" in entry:
+        value = entry["dielectric_strength_kV_per_mm"]
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise MaterialError(f"{where}: dielectric_strength_kV_per_mm must be a number, got {value!r}")
+        strength = float(value) * 1e6
+    tan_d = entry.get("loss_tangent")
+    return Material(
+        name=name,
+        relative_permittivity=float(er),
+        dielectric_strength=strength,
+        kind=str(entry.get("kind", "solid")),
+        loss_tangent=None if tan_d is None else float(tan_d),
+        source=str(entry.get("source", "defined in the case file")),
+    )
+
+
+@lru_cache(maxsize=1)
+def shipped_materials() -> dict[str, Material]:
+    """The materials table shipped with the package, by name."""
+    text = resources.files("fieldsection").joinpath("data/materials.toml").read_text(encoding="utf-8")
+    table = tomllib.loads(text)
+    return {
+        name: material_from_mapping(name, entry, f"shipped materials table [{name}]")
+        for name, entry in table.items()
+    }
+
+
+def lookup_material(name: str, extra: Mapping[str, Material] | None = None) -> Material:
+    """Find ``name`` among case-defined materials first, then the shipped table."""
+    if extra and name in extra:
+        return extra[name]
+    table = shipped_materials()
+    if name in table:
+        return table[name]
+    known = sorted(set(table) | set(extra or {}))
+    close = difflib.get_close_matches(name, known, n=3)
+    hint = f"did you mean {', '.join(repr(c) for c in close)}? " if close else ""
+    raise MaterialError(
+        f"unknown material {name!r}: {hint}define it under [materials.{name}] in the case file, "
+        f"or use one of: {', '.join(known)}"
+    )

@@ -1,0 +1,61 @@
+"""The pipeline, stage by stage: case -> mesh -> assembled problem -> solution -> derived quantities.
+
+Each stage's output is an immutable value passed downstream; nothing reaches back upstream.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from typing import Callable
+
+from .capacitance import CapacitanceResult, compute_capacitance
+from .case import Case
+from .charges import ChargeResult, compute_charges
+from .fields import ElementFields, element_fields
+from .gmsh_adapter import mesh_geometry
+from .hotspots import HotspotResult, find_hotspots
+from .mesh import SectionMesh, build_section_mesh
+from .problem import AssembledProblem, assemble
+from .solve import Solution, solve
+
+
+@dataclass(frozen=True)
+class SectionResult:
+    """Everything computed for one case; the report stage only reads it."""
+
+    case: Case
+    section: SectionMesh
+    problem: AssembledProblem
+    solution: Solution
+    fields: ElementFields
+    charges: ChargeResult
+    capacitance: CapacitanceResult
+    hotspots: HotspotResult
+    stage_seconds: dict[str, float] = field(default_factory=dict)
+
+
+def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> SectionResult:
+    """Run every computing stage for ``case``; ``on_stage(name)`` is called as each stage starts."""
+    seconds: dict[str, float] = {}
+
+    def stage(name: str, work: Callable[[], object]):
+        if on_stage is not None:
+            on_stage(name)
+        start = time.perf_counter()
+        value = work()
+        seconds[name] = time.perf_counter() - start
+        return value
+
+    raw = stage("mesh", lambda: mesh_geometry(case.geometry, case.mesh, frozenset(case.electrodes)))
+    section = stage("convert mesh", lambda: build_section_mesh(raw))
+    problem = stage("assemble", lambda: assemble(case, section))
+    solution = stage("solve", lambda: solve(problem))
+    fields = stage("fields", lambda: element_fields(solution))
+    charges = stage("charges", lambda: compute_charges(problem, fields))
+    capacitance = stage("capacitance", lambda: compute_capacitance(solution, fields, charges))
+    hotspots = stage("hotspots", lambda: find_hotspots(problem, fields, case.hotspot_fraction))
+    return SectionResult(case, section, problem, solution, fields, charges, capacitance, hotspots, seconds)
+
+
+STAGES = ("mesh", "convert mesh", "assemble", "solve", "fields", "charges", "capacitance", "hotspots")

@@ -1,0 +1,99 @@
+"""Report stage: a folder with results.json, report.html, figures and a VTU file.
+
+The folder is built under a temporary name beside its destination and renamed only when every
+file is complete, so a failed run never leaves a half-written report.
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+import tempfile
+from pathlib import Path
+from typing import Callable
+
+from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
+
+from .errors import ReportError
+from .pipeline import SectionResult
+from .results import build_results
+
+VTU_FILE = "fields.vtu"
+
+
+def _render_html(results: dict, figures: list[dict[str, str]]) -> str:
+    env = Environment(
+        loader=PackageLoader("fieldsection", "templates"),
+        autoescape=select_autoescape(["html", "j2"]),
+        undefined=StrictUndefined,
+    )
+    return env.get_template("report.html.j2").render(r=results, figures=figures, vtu_file=VTU_FILE)
+
+
+def _json_default(value):
+    if hasattr(value, "tolist"):
+        return value.tolist()
+    raise TypeError(f"cannot store {type(value).__name__} in results.json")
+
+
+def write_report(
+    result: SectionResult,
+    reports_dir: str | Path = "reports",
+    *,
+    with_figures: bool = True,
+    on_step: Callable[[str], None] | None = None,
+) -> Path:
+    """Write ``reports_dir/<case name>/`` atomically and return its path."""
+    from . import figures as fig
+    from .vtk_export import write_vtu
+
+    reports_dir = Path(reports_dir)
+    try:
+        reports_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise ReportError(f"cannot create the reports folder {str(reports_dir)!r}: {exc.strerror}") from None
+    target = reports_dir / result.case.name
+    staging = Path(tempfile.mkdtemp(prefix=f".{result.case.name}.partial-", dir=reports_dir))
+    try:
+        results = build_results(result)
+        figure_list: list[dict[str, str]] = []
+        if with_figures:
+            plots = [
+                ("regions.png", "Regions, materials, electrodes and mesh", lambda p: fig.plot_regions(result.problem, p)),
+                ("potential.png", "Potential", lambda p: fig.plot_potential(result.solution, p)),
+                ("field.png", "|E| per element with hotspot regions outlined",
+                 lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p)),
+                ("bound_charge.png", "Bound surface charge density on material faces",
+                 lambda p: fig.plot_bound_charge(result.problem, result.charges, p)),
+            ]
+            for name, caption, draw in plots:
+                if on_step:
+                    on_step(f"figure {name}")
+                draw(staging / name)
+                figure_list.append({"file": name, "caption": caption})
+        if on_step:
+            on_step("fields.vtu")
+        write_vtu(result.problem, result.solution, result.fields, result.hotspots, staging / VTU_FILE)
+        (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default), encoding="utf-8")
+        (staging / "report.html").write_text(_render_html(results, figure_list), encoding="utf-8")
+        _replace_folder(staging, target)
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+    return target
+
+
+def _replace_folder(staging: Path, target: Path) -> None:
+    old = None
+    if target.exists():
+        old = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
+        old.rmdir()
+        target.rename(old)
+    try:
+        staging.rename(target)
+    except OSError as exc:
+        if old is not None:
+            old.rename(target)
+        raise ReportError(f"cannot move the finished report into {str(target)!r}: {exc.strerror}") from None
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)

@@ -1,0 +1,174 @@
+"""results.json: every number of a run, each key naming its unit."""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+
+from . import __version__
+from .case import OUTER_BOUNDARY_KINDS, ScriptGeometry
+from .pipeline import SectionResult
+
+#: a dielectric body's closed-surface bound charge, relative to its |sigma_b| integral, above which
+#: the Gauss check is reported as failed (common practice, no source: a discretisation-level tolerance)
+BODY_BALANCE_TOLERANCE = 1e-2
+
+CAUTIONS = (
+    "These results are a design aid computed from an idealised 2D model. They are not a certification "
+    "of the insulation and do not replace type tests.",
+    "Follow the codes and standards that apply where the equipment is built and used, and licensed "
+    "engineering practice. Safety margins, routine and partial-discharge tests are the designer's duty.",
+    "Dielectric strength depends on thickness, area, waveform, duration, temperature and moisture; "
+    "the table values are typical short-time figures, not design stresses.",
+    "At sharp conductor corners and edges the computed peak field grows as the mesh is refined (a field "
+    "singularity); such a peak is not a converged value. Round the edge in the geometry, or judge the "
+    "design by the field a short distance away.",
+    "Gas gaps and voids in series with solid insulation carry a field raised by the solid's permittivity; "
+    "they are where partial discharge starts. Treat flagged gas regions with particular care.",
+)
+
+
+def _mm(point) -> list[float]:
+    return [float(point[0]) * 1e3, float(point[1]) * 1e3]
+
+
+def _num(value: float | None, scale: float = 1.0) -> float | None:
+    if value is None or not math.isfinite(value):
+        return None
+    return float(value) * scale
+
+
+def build_results(result: SectionResult) -> dict[str, Any]:
+    case, problem, section = result.case, result.problem, result.section
+    mesh = section.mesh
+    cap = result.capacitance
+    geometry = case.geometry
+    edge = np.hypot(*(mesh.p[:, mesh.facets[0]] - mesh.p[:, mesh.facets[1]]))
+    pf = 1e12
+
+    bodies = []
+    for body in result.charges.bodies:
+        imbalance = abs(body.bound_charge) / body.absolute_bound_charge if body.absolute_bound_charge > 0 else 0.0
+        bodies.append({
+            "region": body.region,
+            "total_bound_charge_C_per_m": body.bound_charge,
+            "integral_of_abs_sigma_b_C_per_m": body.absolute_bound_charge,
+            "relative_imbalance": imbalance,
+            "check_passed": imbalance <= BODY_BALANCE_TOLERANCE,
+        })
+
+    two_level = None
+    if cap.two_level is not None:
+        t = cap.two_level
+        two_level = {
+            "high_potential_conductors": list(t.high),
+            "low_potential_conductors": list(t.low),
+            "voltage_V": t.voltage,
+            "from_energy_pF_per_m": t.from_energy * pf,
+            "from_electrode_charge_pF_per_m": t.from_charge * pf,
+            "from_surface_flux_pF_per_m": t.from_flux * pf,
+            "relative_difference_charge_vs_energy": t.relative_difference,
+            "relative_difference_flux_vs_energy": t.flux_relative_difference,
+        }
+
+    return {
+        "fieldsection_version": __version__,
+        "case": {
+            "name": case.name,
+            "title": case.title,
+            "case_file": str(case.source_file) if case.source_file else None,
+            "geometry_script": str(geometry.path) if isinstance(geometry, ScriptGeometry) else "Python builder",
+            "script_parameters": dict(geometry.parameters) if isinstance(geometry, ScriptGeometry) else {},
+            "outer_boundary": case.outer_boundary,
+            "outer_boundary_meaning": OUTER_BOUNDARY_KINDS[case.outer_boundary],
+            "hotspot_fraction": case.hotspot_fraction,
+            "element_order": case.mesh.element_order,
+        },
+        "mesh": {
+            "vertices": int(mesh.nvertices),
+            "triangles": int(mesh.nelements),
+            "degrees_of_freedom": int(problem.ndofs),
+            "curved_elements": section.curved,
+            "shortest_edge_mm": float(edge.min()) * 1e3,
+            "longest_edge_mm": float(edge.max()) * 1e3,
+            "triangles_per_region": {n: int((section.region_of_element == i).sum()) for i, n in enumerate(section.region_names)},
+            "gmsh_warnings": list(section.gmsh_warnings),
+        },
+        "materials": [
+            {
+                "region": region,
+                "material": m.name,
+                "kind": m.kind,
+                "relative_permittivity": m.relative_permittivity,
+                "dielectric_strength_kV_per_mm": _num(m.dielectric_strength, 1e-6),
+                "loss_tangent": m.loss_tangent,
+                "source": m.source,
+            }
+            for region, m in problem.material_of_region.items()
+        ],
+        "electrodes": [
+            {
+                "name": c.name,
+                "potential_V": c.potential,
+                "charge_from_reaction_C_per_m": float(cap.charges_from_reaction[i]),
+                "charge_from_surface_flux_C_per_m": float(cap.charges_from_flux[i]),
+                "peak_free_surface_charge_uC_per_m2": result.charges.conductors[i].peak_abs_sigma_f * 1e6,
+            }
+            for i, c in enumerate(problem.conductors)
+        ],
+        "capacitance": {
+            "conductors": list(cap.names),
+            "maxwell_matrix_pF_per_m": (cap.maxwell_from_charge * pf).tolist(),
+            "maxwell_matrix_from_energy_pF_per_m": (cap.maxwell_from_energy * pf).tolist(),
+            "relative_difference_charge_vs_energy": cap.relative_difference,
+            "relative_asymmetry": cap.asymmetry,
+            "mutual_pF_per_m": (cap.mutual * pf).tolist(),
+            "two_level": two_level,
+        },
+        "energy_per_length_J_per_m": cap.energy_per_length,
+        "bound_charge": {
+            "convention": "sigma_b = P.n with n pointing out of each dielectric; on an interface a|b the two sides add",
+            "faces": [
+                {
+                    "between": [i.region_a, i.region_b],
+                    "total_C_per_m": i.bound_charge,
+                    "peak_abs_sigma_b_uC_per_m2": i.peak_abs_sigma_b * 1e6,
+                }
+                for i in result.charges.interfaces
+            ],
+            "bodies": bodies,
+            "body_balance_tolerance": BODY_BALANCE_TOLERANCE,
+        },
+        "peak_fields": [
+            {
+                "region": p.region,
+                "material": p.material,
+                "peak_E_kV_per_mm": p.peak_E * 1e-6,
+                "location_mm": _mm(p.location),
+                "dielectric_strength_kV_per_mm": _num(p.strength, 1e-6),
+                "fraction_of_strength": p.utilisation,
+            }
+            for p in result.hotspots.region_peaks
+        ],
+        "hotspots": [
+            {
+                "rank": k + 1,
+                "region": h.region,
+                "material": h.material,
+                "peak_E_kV_per_mm": h.peak_E * 1e-6,
+                "location_mm": _mm(h.location),
+                "area_mm2": h.area * 1e6,
+                "triangles": h.n_elements,
+                "fraction_of_strength": h.utilisation,
+                "nearest_electrode": h.nearest_electrode,
+                "distance_to_electrode_mm": _num(h.distance_to_electrode, 1e3),
+            }
+            for k, h in enumerate(result.hotspots.hotspots)
+        ],
+        "solver": {"method": "sparse LU (SuperLU), one factorisation for all conductors",
+                   "relative_residual": result.solution.relative_residual},
+        "stage_seconds": result.stage_seconds,
+        "cautions": list(CAUTIONS),
+    }

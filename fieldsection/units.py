@@ -1,0 +1,68 @@
+"""Quantities with units at the edges; SI floats inside.
+
+Case files may write "12 kV", "0.2 mm" or "20 kV/mm"; a bare number is taken as SI.
+Parsing is delegated to pint; its registry is built lazily because it costs ~1 s.
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+from typing import Any
+
+from .errors import UnitError
+
+#: SI unit of each physical kind used in case files and material tables.
+SI_UNITS = {
+    "length": "m",
+    "voltage": "V",
+    "field": "V/m",
+    "charge": "C/m",
+    "dimensionless": "",
+}
+
+
+@lru_cache(maxsize=1)
+def _registry():
+    import pint
+
+    return pint.UnitRegistry()
+
+
+def to_si(value: Any, kind: str, what: str) -> float:
+    """Convert ``value`` (a number, or a string such as ``"12 kV"``) to an SI float of ``kind``.
+
+    ``what`` names the value in error messages, e.g. ``"electrodes.plus.potential"``.
+    """
+    if kind not in SI_UNITS:
+        raise ValueError(f"unknown quantity kind {kind!r}")
+    if isinstance(value, bool):
+        raise UnitError(f"{what}: expected a {kind}, got the boolean {value!r}")
+    if isinstance(value, (int, float)):
+        return float(value)
+    if not isinstance(value, str):
+        raise UnitError(f"{what}: expected a number or a string like '2 mm', got {value!r}")
+    text = value.strip()
+    try:
+        return float(text)
+    except ValueError:
+        pass
+    import pint
+
+    registry = _registry()
+    try:
+        quantity = registry.Quantity(text)
+    except (pint.errors.PintError, ValueError, TypeError, AttributeError, SyntaxError) as exc:
+        raise UnitError(f"{what}: cannot read {value!r} as a {kind} ({exc}); write e.g. '2 mm', '12 kV'") from None
+    target = SI_UNITS[kind]
+    try:
+        converted = quantity.to(target) if target else quantity.to("dimensionless")
+    except pint.errors.DimensionalityError:
+        raise UnitError(
+            f"{what}: {value!r} is not a {kind}; give it in {target or 'no unit'} or a multiple of it"
+        ) from None
+    return float(converted.magnitude)
+
+
+def convert_length(value_m: float, unit: str) -> float:
+    """Express a length given in metres in ``unit`` (e.g. 'mm')."""
+    return value_m / to_si(f"1 {unit}", "length", "length unit")
