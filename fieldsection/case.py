@@ -65,7 +65,7 @@ class MeshSettings:
     near_electrodes: float | None = None
     region_sizes: Mapping[str, float] = field(default_factory=dict)
     element_order: int = 2
-    curved: bool = True  # second-order geometry (nodes on arcs) when element_order >= 2
+    curved: bool = True  # second-order geometry: mid-edge nodes placed on arcs
 
     def __post_init__(self) -> None:
         if self.element_order not in ELEMENT_ORDERS:

@@ -198,7 +198,7 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
     _apply_sizes(gmsh, settings, scale, surfaces, curves, electrode_names & (set(surfaces) | set(curves)))
     try:
         gmsh.model.mesh.generate(2)
-        curved = settings.curved and settings.element_order >= 2
+        curved = settings.curved
         if curved:
             gmsh.model.mesh.setOrder(2)
     except Exception as exc:

@@ -1,0 +1,32 @@
+"""Shared helpers: build a case from a shipped geometry script and analyse it."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from fieldsection import Case, Material, MeshSettings, ScriptGeometry, analyse
+
+GEOMETRIES = Path(__file__).resolve().parent.parent / "geometries"
+
+
+def solve_script(script: str, regions: dict[str, Material], electrodes: dict[str, float], *,
+                 parameters: dict[str, float] | None = None, order: int = 2, curved: bool = True,
+                 outer: str = "grounded", fraction: float = 0.5):
+    """Analyse a geometry from ``geometries/`` whose lengths are in mm."""
+    case = Case(
+        name=Path(script).stem,
+        geometry=ScriptGeometry(GEOMETRIES / script, parameters or {}, 1e-3),
+        regions=regions,
+        electrodes=electrodes,
+        outer_boundary=outer,
+        hotspot_fraction=fraction,
+        mesh=MeshSettings(element_order=order, curved=curved),
+    )
+    return analyse(case)
+
+
+@pytest.fixture
+def geometries() -> Path:
+    return GEOMETRIES
