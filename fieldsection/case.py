@@ -18,6 +18,7 @@ geometry's physical groups in the mesh stage.
 from __future__ import annotations
 
 import math
+import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -168,13 +169,20 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
     if not path.is_file():
         raise CaseFileError(f"case file {str(path)!r} not found; give the path of a .toml case file")
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as exc:
-        raise CaseFileError(
-            f"case file {path.name}: {exc} (each key may appear once; an electrode gets exactly one potential)"
-        ) from None
+        text = path.read_text(encoding="utf-8")
     except UnicodeDecodeError:
         raise CaseFileError(f"case file {path.name}: not UTF-8 text; save it as UTF-8 TOML") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        found = re.search(r"at line (\d+)", str(exc))
+        culprit = ""
+        if found and 0 < int(found.group(1)) <= len(text.splitlines()):
+            culprit = f" [{text.splitlines()[int(found.group(1)) - 1].strip()}]"
+        raise CaseFileError(
+            f"case file {path.name}: {exc}{culprit}; each key may appear once (an electrode gets exactly one "
+            "potential) and strings need quotes"
+        ) from None
     where = path.name
     _check_keys(data, _TOP_KEYS, where)
 

@@ -3,11 +3,17 @@
 It loads a geometry (a screened ``.geo`` script or a pygmsh builder), applies mesh sizes,
 meshes in 2D and returns plain numpy arrays with the named physical groups. No files are
 written: the arrays are read straight from gmsh's API.
+
+gmsh keeps process-wide state, and after one script with a syntax error its parser rejects
+every later script in the same process. So where the platform can fork, each meshing runs in a
+short-lived child process and only the arrays (or the error) come back.
 """
 
 from __future__ import annotations
 
 import math
+import multiprocessing
+import sys
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Iterator, Mapping
@@ -73,6 +79,45 @@ def mesh_geometry(
     electrode_names: frozenset[str] = frozenset(),
 ) -> RawMesh:
     """Load ``geometry`` into gmsh, mesh it in 2D and return the arrays."""
+    if sys.platform != "linux":  # no safe fork: mesh in this process
+        return _mesh_here(geometry, settings, electrode_names)
+    context = multiprocessing.get_context("fork")
+    receiver, sender = context.Pipe(duplex=False)
+    child = context.Process(target=_child, args=(sender, geometry, settings, electrode_names), daemon=True)
+    child.start()
+    sender.close()
+    try:
+        status, payload = receiver.recv()
+    except EOFError:
+        child.join()
+        raise MeshError(
+            f"gmsh stopped unexpectedly (exit code {child.exitcode}) while meshing; simplify the geometry or "
+            "coarsen the mesh, and check the script in gmsh's own window"
+        ) from None
+    finally:
+        receiver.close()
+    child.join()
+    if status == "error":
+        raise payload
+    return payload
+
+
+def _child(sender, geometry, settings, electrode_names) -> None:
+    try:
+        sender.send(("ok", _mesh_here(geometry, settings, electrode_names)))
+    except (GeometryError, MeshError) as exc:
+        sender.send(("error", exc))
+    except BaseException as exc:  # anything else from gmsh or a builder, as a readable error
+        sender.send(("error", MeshError(f"meshing failed: {type(exc).__name__}: {exc}")))
+    finally:
+        sender.close()
+
+
+def _mesh_here(
+    geometry: ScriptGeometry | BuilderGeometry,
+    settings: MeshSettings,
+    electrode_names: frozenset[str],
+) -> RawMesh:
     if isinstance(geometry, ScriptGeometry):
         declared = screen_script(geometry.path, geometry.trusted)
         undeclared = sorted(set(geometry.parameters) - declared)

@@ -1,0 +1,169 @@
+"""Bad input: a one-line error naming the culprit and the fix, exit code 2, and no report folder."""
+
+from __future__ import annotations
+
+import re
+import textwrap
+from pathlib import Path
+
+import pytest
+
+from fieldsection.cli import EXIT_BAD_INPUT, main
+
+PLATES_GEO = """\
+// two plates (top, bottom) with a dielectric gap; side walls are left to the outer boundary kind
+DefineConstant[ width = 10, gap = 1 ];
+Point(1) = {0, 0, 0, 0.5};
+Point(2) = {width, 0, 0, 0.5};
+Point(3) = {width, gap, 0, 0.5};
+Point(4) = {0, gap, 0, 0.5};
+Line(1) = {1, 2};
+Line(2) = {2, 3};
+Line(3) = {3, 4};
+Line(4) = {4, 1};
+Curve Loop(1) = {1, 2, 3, 4};
+Plane Surface(1) = {1};
+Physical Surface("gap") = {1};
+Physical Curve("top") = {3};
+Physical Curve("bottom") = {1};
+Physical Curve("right") = {2};
+"""
+
+PLATES_CASE = """\
+[geometry]
+script = "plates.geo"
+length_unit = "mm"
+
+[regions]
+gap = "PTFE"
+
+[electrodes]
+top = "1 kV"
+bottom = "0 V"
+
+[boundary]
+outer = "insulated"
+"""
+
+
+def write_case(folder: Path, case: str = PLATES_CASE, geo: str = PLATES_GEO) -> Path:
+    (folder / "plates.geo").write_text(geo)
+    path = folder / "plates.toml"
+    path.write_text(textwrap.dedent(case))
+    return path
+
+
+def run_expecting_error(tmp_path: Path, capsys, case_path: Path, *extra: str) -> str:
+    reports = tmp_path / "reports"
+    code = main(["run", str(case_path), "--reports", str(reports), "--quiet", "--no-figures", *extra])
+    err = capsys.readouterr().err
+    assert code == EXIT_BAD_INPUT, err
+    lines = [line for line in err.splitlines() if line.strip()]
+    assert len(lines) == 1 and lines[0].startswith("fieldsection: error: ")
+    assert not reports.exists() or not any(reports.iterdir()), "a report folder was left behind"
+    return lines[0]
+
+
+def test_the_base_case_is_valid(tmp_path, capsys):
+    # guards the error tests below: each changes one thing in a case that runs
+    reports = tmp_path / "reports"
+    assert main(["run", str(write_case(tmp_path)), "--reports", str(reports), "--quiet", "--no-figures"]) == 0
+    assert (reports / "plates" / "results.json").is_file()
+
+
+def test_missing_case_file(tmp_path, capsys):
+    message = run_expecting_error(tmp_path, capsys, tmp_path / "nowhere.toml")
+    assert "nowhere.toml" in message and "not found" in message
+
+
+def test_missing_script(tmp_path, capsys):
+    case = write_case(tmp_path, PLATES_CASE.replace("plates.geo", "absent.geo"))
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert "absent.geo" in message and "not found" in message
+
+
+def test_gmsh_syntax_error_names_the_line(tmp_path, capsys):
+    case = write_case(tmp_path, geo=PLATES_GEO.replace("Line(2) = {2, 3};", "Line(2) = {2, 3}"))
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert "plates.geo" in message and "line 9" in message and "syntax error" in message
+
+
+@pytest.mark.parametrize(
+    "old, new, expected",
+    [
+        ('gap = "PTFE"', 'gap = "PTFE"\nslab = "PTFE"', r"regions\.slab: no physical surface 'slab'"),
+        ('top = "1 kV"', 'top = "1 kV"\nlid = "2 kV"', r"electrodes\.lid: no physical curve or surface 'lid'"),
+        ('gap = "PTFE"', 'gap = "PFTE"', r"unknown material 'PFTE'.*did you mean 'PTFE'"),
+        ('gap = "PTFE"', 'gap = "bad"\n[materials.bad]\nrelative_permittivity = -2.0',
+         r"material 'bad': relative permittivity -2\.0 must be a positive number"),
+        ('gap = "PTFE"', 'gap = "bad"\n[materials.bad]\nrelative_permittivity = 0.5', r"below 1"),
+        ('top = "1 kV"', 'top = "1 kV"\ntop = "2 kV"', r"line 10.*\[top = \"2 kV\"\].*exactly one potential"),
+        ('top = "1 kV"', 'top = "1 mm"', r"electrodes\.top: '1 mm' is not a voltage"),
+        ('outer = "insulated"', 'outer = "open"', r"boundary\.outer = 'open'"),
+    ],
+)
+def test_case_file_errors(tmp_path, capsys, old, new, expected):
+    case = write_case(tmp_path, PLATES_CASE.replace(old, new))
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert re.search(expected, message), message
+
+
+@pytest.mark.parametrize("fraction", ["0.0", "1.5", "-0.2"])
+def test_hotspot_fraction_outside_0_1(tmp_path, capsys, fraction):
+    case = write_case(tmp_path, PLATES_CASE + f"\n[hotspots]\nfraction = {fraction}\n")
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert "hotspots.fraction" in message and "(0, 1]" in message
+
+
+def test_region_without_material(tmp_path, capsys):
+    geo = PLATES_GEO.replace('Physical Surface("gap") = {1};', 'Physical Surface("gap") = {1};\n')
+    geo = geo.replace("Plane Surface(1) = {1};", "Plane Surface(1) = {1};\n"
+                      "Point(5) = {0, 3, 0, 0.5}; Point(6) = {1, 3, 0, 0.5}; Point(7) = {1, 4, 0, 0.5};\n"
+                      "Line(5) = {5, 6}; Line(6) = {6, 7}; Line(7) = {7, 5};\n"
+                      "Curve Loop(2) = {5, 6, 7}; Plane Surface(2) = {2};\n"
+                      'Physical Surface("spacer") = {2};')
+    message = run_expecting_error(tmp_path, capsys, write_case(tmp_path, geo=geo))
+    assert "region 'spacer' has no material" in message and "[regions]" in message
+
+
+def test_unnamed_physical_group(tmp_path, capsys):
+    geo = PLATES_GEO.replace('Physical Curve("right") = {2};', "Physical Curve(7) = {2};")
+    message = run_expecting_error(tmp_path, capsys, write_case(tmp_path, geo=geo))
+    assert "has no name" in message
+
+
+def test_touching_electrodes(tmp_path, capsys):
+    case = write_case(tmp_path, PLATES_CASE.replace('bottom = "0 V"', 'bottom = "0 V"\nright = "500 V"'))
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert "touch" in message and "'right'" in message
+
+
+def test_undeclared_script_parameter(tmp_path, capsys):
+    case = write_case(tmp_path, PLATES_CASE.replace('length_unit = "mm"', 'length_unit = "mm"\nparameters = { depth = 2 }'))
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert "'depth'" in message and "DefineConstant" in message
+
+
+def test_shell_command_in_script_is_refused_without_trust(tmp_path, capsys):
+    marker = tmp_path / "ran.txt"
+    geo = PLATES_GEO + f'System "touch {marker}";\n'
+    case = write_case(tmp_path, geo=geo)
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert "'System' runs a shell command" in message and "--trust-script" in message and "line 17" in message
+    assert not marker.exists()
+    # a trusted script runs, command included
+    assert main(["run", str(case), "--reports", str(tmp_path / "reports"), "--quiet", "--no-figures",
+                 "--trust-script"]) == 0
+    assert marker.exists()
+
+
+def test_keyword_inside_a_comment_or_string_is_not_refused(tmp_path, capsys):
+    geo = PLATES_GEO + '// System "rm -rf /" is only a comment here\nPrintf("System check");\n'
+    reports = tmp_path / "reports"
+    assert main(["run", str(write_case(tmp_path, geo=geo)), "--reports", str(reports), "--quiet", "--no-figures"]) == 0
+
+
+def test_exit_in_script_is_always_refused(tmp_path, capsys):
+    case = write_case(tmp_path, geo=PLATES_GEO + "Exit;\n")
+    message = run_expecting_error(tmp_path, capsys, case, "--trust-script")
+    assert "'Exit' would end the program" in message
