@@ -49,7 +49,7 @@ class ScriptGeometry:
 
 @dataclass(frozen=True)
 class BuilderGeometry:
-    """A geometry built in Python: ``build(geom)`` receives a ``pygmsh.occ.Geometry``.
+    """A geometry built in Python: ``build(geom)`` receives a ``pygmsh.geo.Geometry``.
 
     It must add named physical groups (``geom.add_physical(entities, label=...)``).
     """

@@ -142,7 +142,7 @@ def _mesh_here(
     if isinstance(geometry, BuilderGeometry):
         import pygmsh
 
-        with pygmsh.occ.Geometry() as geom:
+        with pygmsh.geo.Geometry() as geom:
             import gmsh
 
             _quiet(gmsh)

@@ -104,6 +104,7 @@ def build_section_mesh(raw: RawMesh) -> SectionMesh:
         mesh = replace(curved, doflocs=doflocs)
 
     _check_quality(mesh)
+    _check_conforming(base, names, region_of_element)
     return SectionMesh(mesh, names, region_of_element, curve_facets, raw.warnings)
 
 
@@ -125,3 +126,24 @@ def _check_quality(mesh: MeshTri1 | MeshTri2) -> None:
         det = Basis(mesh, ElementTriP0(), intorder=4).dx  # |J| * weights; must be positive
         if not np.all(np.isfinite(det)) or (det <= 0).any():
             raise MeshError("a curved element is inverted (mid-edge node too far off the chord); refine near arcs")
+
+
+def _check_conforming(mesh: MeshTri1, names: tuple[str, ...], region_of_element: np.ndarray) -> None:
+    """Refuse coincident but distinct vertices: surfaces that touch without sharing mesh nodes.
+
+    Such a seam silently cuts the field problem in two, so an interface would act as a perfect
+    insulator. It comes from surfaces drawn side by side without fragmenting them.
+    """
+    from scipy.spatial import cKDTree
+
+    extent = float(np.ptp(mesh.p, axis=1).max())
+    pairs = cKDTree(mesh.p.T).query_pairs(r=1e-9 * extent, output_type="ndarray")
+    if len(pairs):
+        i, j = pairs[0]
+        touching = [names[region_of_element[np.flatnonzero((mesh.t == v).any(axis=0))[0]]] for v in (i, j)]
+        x, y = mesh.p[:, i]
+        raise MeshError(
+            f"surfaces {touching[0]!r} and {touching[1]!r} touch near ({x * 1e3:.4g}, {y * 1e3:.4g}) mm without "
+            "sharing mesh nodes, so no field crosses the seam; share the curves between the surfaces "
+            "(OpenCASCADE: BooleanFragments; built-in kernel: Coherence or common Line entities)"
+        )
