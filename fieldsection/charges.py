@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .fields import ElementFields
-from .problem import AssembledProblem
+from .problem import OUTER_BOUNDARY, AssembledProblem
 
 
 @dataclass(frozen=True)
@@ -141,7 +141,7 @@ def compute_charges(problem: AssembledProblem, fields: ElementFields) -> ChargeR
     conductor_label = np.full(mesh.nfacets, -1, dtype=np.int64)
     for k, conductor in enumerate(problem.conductors):
         conductor_label[conductor.facets] = k
-    labels = [*names, *(f"electrode {c.name}" if c.name != "outer boundary" else c.name
+    labels = [*names, *(f"electrode {c.name}" if c.name != OUTER_BOUNDARY else c.name
                         for c in problem.conductors), "insulated boundary"]
     n_regions, n_cond = len(names), len(problem.conductors)
 

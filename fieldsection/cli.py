@@ -42,7 +42,7 @@ def _run(args: argparse.Namespace) -> int:
     from .report import write_report
 
     case = load_case(args.case, trust_script=args.trust_script)
-    total = len(STAGES) + 6  # computing stages, four figures, the VTU file
+    total = len(STAGES) + 7  # computing stages, five figures, the VTU file
     with tqdm(total=total, disable=args.quiet, unit="stage", desc=case.name, file=sys.stderr) as bar:
         def step(name: str) -> None:  # called as each stage starts
             bar.set_postfix_str(name)
@@ -63,6 +63,11 @@ def _summary(result, folder: Path) -> None:
         t = cap.two_level
         print(f"capacitance {', '.join(t.high)} | {', '.join(t.low)}: {t.from_energy * 1e12:.6g} pF/m "
               f"(charge vs energy {t.relative_difference:.1e})")
+    else:
+        names = cap.names
+        for i in range(len(names)):
+            for j in range(i + 1, len(names)):
+                print(f"mutual capacitance {names[i]} | {names[j]}: {cap.mutual[i, j] * 1e12:.6g} pF/m")
     for peak in result.hotspots.region_peaks:
         share = "" if peak.utilisation is None else f", {100 * peak.utilisation:.1f} % of strength"
         print(f"peak |E| in {peak.region} ({peak.material}): {peak.peak_E * 1e-6:.4g} kV/mm{share}")

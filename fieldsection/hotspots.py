@@ -1,7 +1,8 @@
 """Hotspots: where |E| approaches a material's dielectric strength.
 
 Every dielectric element whose peak |E| is at least ``fraction`` x its material's strength is
-flagged; flagged elements of the same region that share an edge form one hotspot region.
+flagged; flagged elements of the same region that share a vertex form one hotspot region
+(sharing an edge would split a corner's fan of elements into many one-element regions).
 """
 
 from __future__ import annotations
@@ -72,21 +73,19 @@ def find_hotspots(problem: AssembledProblem, fields: ElementFields, fraction: fl
         elements = section.elements_of(name)
         k = elements[np.argmax(peak[elements])]
         s = material.dielectric_strength
-        peaks.append(RegionPeak(name, material.name, float(peak[k]), tuple(mesh.p[:, peak_vertex[k]]), s,
+        x, y = mesh.p[:, peak_vertex[k]]
+        peaks.append(RegionPeak(name, material.name, float(peak[k]), (float(x), float(y)), s,
                                 None if s is None else float(peak[k] / s)))
 
     flagged = np.nan_to_num(utilisation, nan=0.0) >= fraction
     hotspots: list[Hotspot] = []
     if flagged.any():
-        a, b = mesh.f2t
-        link = (a >= 0) & (b >= 0)
-        a, b = a[link], b[link]
-        link = flagged[a] & flagged[b] & (region[a] == region[b])
-        n = mesh.nelements
-        graph = sp.coo_matrix((np.ones(link.sum()), (a[link], b[link])), shape=(n, n))
-        _, component = connected_components(graph, directed=False)
         flagged_idx = np.flatnonzero(flagged)
-        groups = component[flagged_idx]
+        # element-vertex incidence of the flagged elements, one vertex set per region
+        rows = np.repeat(np.arange(flagged_idx.size), 3)
+        cols = (mesh.t[:, flagged_idx].T.astype(np.int64) * len(names) + region[flagged_idx, None]).ravel()
+        incidence = sp.csr_matrix((np.ones(rows.size), (rows, cols)), shape=(flagged_idx.size, mesh.nvertices * len(names)))
+        _, groups = connected_components(incidence @ incidence.T, directed=False)
         order = np.argsort(groups, kind="stable")
         split = np.flatnonzero(np.diff(groups[order])) + 1
         trees = [(c.name, cKDTree(mesh.p[:, mesh.facets[:, c.facets].ravel()].T))

@@ -7,6 +7,7 @@ file is complete, so a failed run never leaves a half-written report.
 from __future__ import annotations
 
 import json
+import os
 import shutil
 import tempfile
 from pathlib import Path
@@ -54,6 +55,9 @@ def write_report(
         raise ReportError(f"cannot create the reports folder {str(reports_dir)!r}: {exc.strerror}") from None
     target = reports_dir / result.case.name
     staging = Path(tempfile.mkdtemp(prefix=f".{result.case.name}.partial-", dir=reports_dir))
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(staging, 0o777 & ~umask)  # mkdtemp makes it private; a report folder is an ordinary one
     try:
         results = build_results(result)
         figure_list: list[dict[str, str]] = []
@@ -63,6 +67,8 @@ def write_report(
                 ("potential.png", "Potential", lambda p: fig.plot_potential(result.solution, p)),
                 ("field.png", "|E| per element with hotspot regions outlined",
                  lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p)),
+                ("field_detail.png", "|E| close to the highest-ranked hotspot (or the highest field)",
+                 lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p, detail=True)),
                 ("bound_charge.png", "Bound surface charge density on material faces",
                  lambda p: fig.plot_bound_charge(result.problem, result.charges, p)),
             ]

@@ -1,0 +1,346 @@
+"""Figures: PNG plots of the regions, the potential, |E| with hotspots, and bound surface charge.
+
+Drawn with matplotlib's object API (``matplotlib.figure.Figure`` on an Agg canvas), so no pyplot
+state is touched and nothing needs a display. Quantities are SI inside; the plots show
+engineers' units, always labelled: lengths in mm, potential in V or kV, |E| in kV/mm and surface
+charge density in uC/m^2.
+
+Curved (second-order) meshes are drawn by their corner vertices, i.e. with straight chords.
+Every function writes a PNG at ``DPI``, releases the figure and returns the path written.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+from matplotlib.axes import Axes
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.collections import LineCollection
+from matplotlib.colors import ListedColormap, Normalize, hsv_to_rgb
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
+from matplotlib.ticker import MaxNLocator
+from matplotlib.tri import Triangulation
+
+from .charges import ChargeResult
+from .errors import ReportError
+from .fields import ElementFields
+from .hotspots import HotspotResult
+from .problem import AssembledProblem
+from .solve import Solution
+
+DPI = 120
+#: meshes with at least this many elements are drawn without their edges
+MAX_ELEMENTS_WITH_EDGES = 20_000
+#: meshes with more elements than this have their filled artists rasterised
+RASTERISE_ABOVE = 200_000
+#: hotspots beyond this rank are outlined but not numbered, to keep the plot legible
+MAX_NUMBERED_HOTSPOTS = 20
+#: a hotspot label closer than this share of the section's size to a higher-ranked one is omitted
+LABEL_SPACING = 0.04
+#: the bound-charge colour scale is clipped at the 99th percentile of |sigma_b| when the peak
+#: exceeds it by this factor (a few facets at a sharp edge would otherwise wash out the rest)
+CLIP_RATIO = 2.0
+
+_MM = 1e3  # m -> mm
+_KV_PER_MM = 1e-6  # V/m -> kV/mm
+_UC_PER_M2 = 1e6  # C/m^2 -> uC/m^2
+_OUTLINE = "#3c3c3c"
+_CONDUCTOR_FILL = "#8f8f8f"
+_HOTSPOT = "#1d4f91"
+_ELECTRODE_COLOURS = ("#202020", "#7a2e12", "#1f5c4a", "#4a2f73", "#6b5a12", "#2a4f7a")
+
+
+# --------------------------------------------------------------------------------------- helpers
+def _vertices_mm(problem: AssembledProblem) -> np.ndarray:
+    """Corner-vertex coordinates in mm, shape (2, nvertices) (``mesh.p`` of MeshTri2 has more)."""
+    mesh = problem.section.mesh
+    return mesh.p[:, : mesh.nvertices] * _MM
+
+
+def _triangulation(problem: AssembledProblem, mask: np.ndarray | None = None) -> Triangulation:
+    xy = _vertices_mm(problem)
+    return Triangulation(xy[0], xy[1], problem.section.mesh.t.T, mask=mask)
+
+
+def _segments_mm(problem: AssembledProblem, facets: np.ndarray) -> np.ndarray:
+    """The straight segments of ``facets``, shape (n, 2 ends, 2 coordinates), mm."""
+    xy = _vertices_mm(problem)
+    return xy[:, problem.section.mesh.facets[:, facets]].transpose(2, 1, 0)  # (coord, end, n) -> (n, end, coord)
+
+
+def _outline_facets(problem: AssembledProblem) -> np.ndarray:
+    """Facets on the mesh boundary or between two regions."""
+    f2t = problem.section.mesh.f2t
+    region = problem.section.region_of_element
+    other = region[np.maximum(f2t[1], 0)]
+    return np.flatnonzero((f2t[1] < 0) | (region[f2t[0]] != other))
+
+
+def _region_colours(problem: AssembledProblem) -> np.ndarray:
+    """One light RGB colour per region (golden-ratio hue steps); conductor regions grey."""
+    names = problem.section.region_names
+    hue = (0.58 + 0.618034 * np.arange(len(names))) % 1.0
+    hsv = np.column_stack([hue, np.full(hue.shape, 0.30), np.full(hue.shape, 0.92)])
+    rgb = hsv_to_rgb(hsv)
+    is_conductor = np.array([name not in problem.material_of_region for name in names], dtype=bool)
+    rgb[is_conductor] = np.array([int(_CONDUCTOR_FILL[i:i + 2], 16) for i in (1, 3, 5)]) / 255.0
+    return rgb
+
+
+def _fill_regions(ax: Axes, problem: AssembledProblem, strength: float = 1.0) -> None:
+    """Fill each region with its colour, mixed with white by ``1 - strength`` (opaque, no seams)."""
+    colours = 1.0 - strength * (1.0 - _region_colours(problem))
+    ax.tripcolor(_triangulation(problem), facecolors=problem.section.region_of_element.astype(float),
+                 cmap=ListedColormap(colours), vmin=-0.5, vmax=len(colours) - 0.5,
+                 rasterized=problem.section.mesh.nelements > RASTERISE_ABOVE)
+
+
+def _draw_outline(ax: Axes, problem: AssembledProblem, width: float = 0.6) -> None:
+    """Thin lines along the section's boundary and between regions."""
+    ax.add_collection(LineCollection(_segments_mm(problem, _outline_facets(problem)),
+                                     colors=_OUTLINE, linewidths=width, zorder=3))
+
+
+def format_voltage(volts: float) -> str:
+    """A potential for a label: kV from 1 kV up, else V."""
+    if abs(volts) >= 1e3:
+        return f"{volts / 1e3:.4g} kV"
+    return f"{volts:.4g} V"
+
+
+def _new_figure(problem: AssembledProblem) -> tuple[Figure, Axes]:
+    """A figure sized to the section's aspect ratio, with one equal-aspect axes in mm."""
+    xy = _vertices_mm(problem)
+    width, height = np.ptp(xy, axis=1)
+    aspect = float(np.clip(height / width if width > 0 else 1.0, 0.45, 1.6))
+    fig = Figure(figsize=(8.0, 1.2 + 5.6 * aspect), layout="constrained")
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    ax.set_aspect("equal")
+    ax.set_xlabel("x (mm)")
+    ax.set_ylabel("y (mm)")
+    ax.set_facecolor("white")
+    ax.margins(0.06)
+    return fig, ax
+
+
+def _save(fig: Figure, path: str | os.PathLike) -> Path:
+    path = Path(path)
+    try:
+        fig.savefig(path, dpi=DPI, format="png")
+    except OSError as exc:
+        raise ReportError(f"cannot write the figure {str(path)!r}: {exc.strerror or exc}; "
+                          "check that its folder exists and is writable") from None
+    finally:
+        fig.clear()  # the figure was never registered with pyplot; this frees its artists now
+    return path
+
+
+# --------------------------------------------------------------------------------------- figures
+def plot_regions(problem: AssembledProblem, path: str | os.PathLike) -> Path:
+    """Regions filled by colour (legend: region and material), mesh edges, labelled electrodes."""
+    section, mesh = problem.section, problem.section.mesh
+    fig, ax = _new_figure(problem)
+    _fill_regions(ax, problem)
+    colours = _region_colours(problem)
+    handles: list = []
+    for index, name in enumerate(section.region_names):
+        material = problem.material_of_region.get(name)
+        what = (f"{material.name} (εr = {material.relative_permittivity:.3g})" if material is not None
+                else "conductor")
+        handles.append(Patch(facecolor=colours[index], edgecolor=_OUTLINE, linewidth=0.5,
+                             label=f"{name}: {what}"))
+
+    n = mesh.nelements
+    if n < MAX_ELEMENTS_WITH_EDGES:
+        ax.add_collection(LineCollection(_segments_mm(problem, np.arange(mesh.nfacets)),
+                                         colors="#4d4d4d", linewidths=0.2, alpha=0.7, zorder=2))
+        edges_note = f"{n} elements, P{problem.element_order}"
+    else:
+        edges_note = (f"{n} elements, P{problem.element_order}; "
+                      f"mesh edges not drawn (≥ {MAX_ELEMENTS_WITH_EDGES:,} elements)".replace(",", " "))
+    _draw_outline(ax, problem)
+
+    for k, conductor in enumerate(problem.conductors):
+        if conductor.facets.size == 0:
+            continue
+        colour = _ELECTRODE_COLOURS[k % len(_ELECTRODE_COLOURS)]
+        segments = _segments_mm(problem, conductor.facets)
+        ax.add_collection(LineCollection(segments, colors=colour, linewidths=2.4, zorder=4))
+        label = f"{conductor.name}: {format_voltage(conductor.potential)}"
+        handles.append(Line2D([], [], color=colour, linewidth=2.4, label=f"electrode {label}"))
+        midpoints = segments.mean(axis=1)
+        top = midpoints[np.argmax(midpoints[:, 1])]  # label at the electrode's highest point
+        ax.annotate(label, top, xytext=(0, 5), textcoords="offset points", ha="center", va="bottom",
+                    fontsize=8, color=colour, zorder=5,
+                    bbox=dict(boxstyle="round,pad=0.2", facecolor="white", edgecolor=colour, alpha=0.85))
+
+    ax.autoscale_view()
+    ax.set_title(f"Regions, materials and electrodes\n{edges_note}", fontsize=10)
+    fig.legend(handles=handles, loc="outside right upper", fontsize=8, frameon=False)
+    return _save(fig, path)
+
+
+def plot_potential(solution: Solution, path: str | os.PathLike) -> Path:
+    """Filled contours of the potential at the corner vertices, with 15 contour lines."""
+    problem = solution.problem
+    mesh = problem.section.mesh
+    volts = solution.potential[: mesh.nvertices]  # vertex DOFs come first in P1 and P2 bases
+    scale, unit = (1e-3, "kV") if np.abs(volts).max() >= 1e3 else (1.0, "V")
+    values = volts * scale
+    low, high = float(values.min()), float(values.max())
+    fig, ax = _new_figure(problem)
+    big = mesh.nelements > RASTERISE_ABOVE
+    if high - low <= 1e-9 * max(abs(high), abs(low), 1e-3):  # one potential everywhere (round-off aside)
+        level = 0.5 * (low + high)
+        shading = ax.tripcolor(_triangulation(problem), facecolors=np.full(mesh.nelements, level),
+                               cmap="cividis", norm=Normalize(level - 1.0, level + 1.0), rasterized=big)
+        _draw_outline(ax, problem)
+        fig.colorbar(shading, ax=ax, shrink=0.85).set_label(f"V ({unit})")
+        ax.set_title(f"Potential ({unit}): {format_voltage(level / scale)} everywhere, no equipotential lines",
+                     fontsize=10)
+        return _save(fig, path)
+
+    dielectric = problem.dielectric
+    tri = _triangulation(problem, mask=~dielectric if (~dielectric).any() else None)
+    levels = np.linspace(low, high, 31)
+    pad = 1e-9 * (high - low)
+    levels[0], levels[-1] = low - pad, high + pad  # keep flat areas at the extremes inside a band
+    filled = ax.tricontourf(tri, values, levels=levels, cmap="cividis")
+    lines = ax.tricontour(tri, values, levels=np.linspace(low, high, 17)[1:-1], colors="black",
+                          linewidths=0.5, alpha=0.7, negative_linestyles="solid")
+    filled.set_rasterized(big)
+    if (~dielectric).any():  # meshed conductors: flat, in the colour of their potential
+        ax.tripcolor(_triangulation(problem, mask=dielectric), facecolors=values[mesh.t].mean(axis=0),
+                     cmap=filled.cmap, norm=filled.norm, rasterized=big)
+    _draw_outline(ax, problem)
+    bar = fig.colorbar(filled, ax=ax, shrink=0.85)
+    ticks = MaxNLocator(8).tick_values(low, high)
+    bar.set_ticks(ticks[(ticks >= low - pad) & (ticks <= high + pad)])  # not the padded band ends
+    bar.set_label(f"V ({unit})")
+    bar.add_lines(lines)
+    ax.set_title(f"Potential ({unit}), {len(lines.levels)} equipotential lines", fontsize=10)
+    return _save(fig, path)
+
+
+def _hotspot_owner(nelements: int, hotspots: HotspotResult) -> np.ndarray:
+    """Rank (0-based) of the hotspot each element belongs to, -1 for none."""
+    owner = np.full(nelements, -1, dtype=np.int64)
+    if hotspots.hotspots:
+        members = np.concatenate([h.elements for h in hotspots.hotspots])
+        sizes = [h.elements.size for h in hotspots.hotspots]
+        owner[members] = np.repeat(np.arange(len(sizes)), sizes)
+    return owner
+
+
+def hotspot_boundary_facets(problem: AssembledProblem, hotspots: HotspotResult) -> np.ndarray:
+    """Facets with exactly one neighbour in a hotspot's element set (the sets' outlines)."""
+    f2t = problem.section.mesh.f2t
+    owner = _hotspot_owner(problem.section.mesh.nelements, hotspots)
+    first = owner[f2t[0]]
+    second = np.where(f2t[1] >= 0, owner[np.maximum(f2t[1], 0)], -1)
+    return np.flatnonzero((first != second) & ((first >= 0) | (second >= 0)))
+
+
+#: half-width of the detail view around the highest field, as a share of the model's extent
+DETAIL_HALF_WIDTH = 0.05
+
+
+def plot_field(problem: AssembledProblem, fields: ElementFields, hotspots: HotspotResult,
+               path: str | os.PathLike, *, detail: bool = False) -> Path:
+    """Peak |E| per dielectric element in kV/mm; hotspot regions outlined and numbered by rank.
+
+    With ``detail`` the view is a close-up around the top-ranked hotspot (or, without hotspots,
+    the element of highest |E|), where thin films, corners and gas gaps become visible.
+    """
+    mesh = problem.section.mesh
+    peak = fields.element_peak_E * _KV_PER_MM
+    dielectric = problem.dielectric
+    fig, ax = _new_figure(problem)
+    top = float(peak[dielectric].max())
+    shading = ax.tripcolor(_triangulation(problem, mask=~dielectric), facecolors=peak, cmap="YlOrRd",
+                           norm=Normalize(0.0, top if top > 0 else 1.0),
+                           rasterized=mesh.nelements > RASTERISE_ABOVE)
+    if (~dielectric).any():  # meshed conductors: flat grey, no field drawn
+        ax.tripcolor(_triangulation(problem, mask=dielectric), facecolors=np.zeros(mesh.nelements),
+                     cmap=ListedColormap([_CONDUCTOR_FILL]), rasterized=mesh.nelements > RASTERISE_ABOVE)
+    _draw_outline(ax, problem, width=0.5)
+
+    found = hotspots.hotspots
+    if found:
+        ax.add_collection(LineCollection(_segments_mm(problem, hotspot_boundary_facets(problem, hotspots)),
+                                         colors=_HOTSPOT, linewidths=1.3, zorder=4))
+        xy = _vertices_mm(problem)
+        spacing = LABEL_SPACING * float(np.ptp(xy, axis=1).max())
+        placed: list[np.ndarray] = []
+        for rank, spot in enumerate(found[:MAX_NUMBERED_HOTSPOTS], start=1):
+            where = np.asarray(spot.location) * _MM
+            if any(np.hypot(*(where - other)) < spacing for other in placed):
+                continue  # a higher-ranked label sits right here already
+            placed.append(where)
+            ax.plot(*where, marker="+", color=_HOTSPOT, markersize=7, zorder=5)
+            ax.annotate(str(rank), where, xytext=(4, 4), textcoords="offset points", fontsize=8,
+                        color=_HOTSPOT, fontweight="bold", zorder=6,
+                        bbox=dict(boxstyle="circle,pad=0.15", facecolor="white", edgecolor=_HOTSPOT, alpha=0.9))
+        shown = len(placed)
+        note = f"{len(found)} hotspot(s) outlined where |E| ≥ {hotspots.fraction:.0%} of strength, numbered by rank"
+        if shown < len(found):
+            note += f"\n{shown} labels shown; crowded or lower-ranked ones omitted"
+    else:
+        note = f"no element reaches {hotspots.fraction:.0%} of its material's strength"
+    bar = fig.colorbar(shading, ax=ax, shrink=0.85)
+    bar.set_label("|E| (kV/mm)")
+    title = f"Peak |E| per element, max {top:.3g} kV/mm"
+    if detail:
+        if found:
+            centre = np.asarray(found[0].location) * _MM
+        else:
+            hottest = int(np.argmax(np.where(dielectric, peak, -np.inf)))
+            centre = mesh.p[:, mesh.t[:, hottest]].mean(axis=1) * _MM
+        half = DETAIL_HALF_WIDTH * float(np.ptp(_vertices_mm(problem), axis=1).max())
+        ax.set_xlim(centre[0] - half, centre[0] + half)
+        ax.set_ylim(centre[1] - half, centre[1] + half)
+        title = f"Detail around ({centre[0]:.3g}, {centre[1]:.3g}) mm; " + title[0].lower() + title[1:]
+    ax.set_title(f"{title}\n{note}", fontsize=10)
+    return _save(fig, path)
+
+
+def plot_bound_charge(problem: AssembledProblem, charges: ChargeResult, path: str | os.PathLike) -> Path:
+    """Bound surface charge density on every material face, uC/m^2 on a scale symmetric about 0.
+
+    Each facet is coloured by the mean of its two end values. When a few facets (typically at a
+    sharp edge, where the field is singular) exceed twice the 99th percentile of |sigma_b|, the
+    scale is clipped there so the other faces stay readable; the title then says so.
+    """
+    fig, ax = _new_figure(problem)
+    _fill_regions(ax, problem, strength=0.3)
+    interfaces = charges.interfaces
+    facets = np.concatenate([i.facets for i in interfaces]) if interfaces else np.zeros(0, dtype=np.int64)
+    sigma = (np.concatenate([i.sigma_b.mean(axis=1) for i in interfaces]) * _UC_PER_M2
+             if interfaces else np.zeros(0))
+    peak = float(np.abs(sigma).max()) if sigma.size else 0.0
+    extent, extend, clip_note = (peak if peak > 0 else 1.0), "neither", ""
+    if sigma.size:
+        typical = float(np.percentile(np.abs(sigma), 99))
+        if typical > 0 and peak > CLIP_RATIO * typical:
+            extent = typical
+            extend = {(True, True): "both", (True, False): "max", (False, True): "min"}[
+                (bool(sigma.max() > typical), bool(sigma.min() < -typical))]
+            clip_note = f"\ncolour scale clipped at the 99th percentile; peak |sigma_b| = {peak:.3g} µC/m²"
+    segments = _segments_mm(problem, facets)
+    _draw_outline(ax, problem, width=0.4)
+    ax.add_collection(LineCollection(segments, colors=_OUTLINE, linewidths=4.2, zorder=3,
+                                     capstyle="round"))  # casing
+    lines = LineCollection(segments, array=sigma, cmap="RdBu_r", norm=Normalize(-extent, extent),
+                           linewidths=3.0, zorder=4, capstyle="round")
+    ax.add_collection(lines)
+    ax.autoscale_view()
+    bar = fig.colorbar(lines, ax=ax, shrink=0.85, extend=extend)
+    bar.set_label("σ_b (µC/m²)")
+    ax.set_title(f"Bound surface charge density\nsigma_b = P·n (n out of each dielectric){clip_note}",
+                 fontsize=10)
+    return _save(fig, path)
