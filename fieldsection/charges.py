@@ -5,8 +5,8 @@ Conventions (fixed once, tested on the coaxial case):
 - bound charge density on a face of dielectric body a: sigma_b = P_a . n_a, n_a its outward
   normal; on an interface a|b the two sides add up to sigma_b = (P_a - P_b) . n_ab, n_ab from a to b;
   on a face touching a conductor sigma_b = P . n_out of the dielectric.
-Surface integrals use the trapezoidal rule on the vertex values, exact for the piecewise linear
-P2 field on straight edges.
+Densities are sampled at facet ends from the vertex values (for tables and plots); totals are
+Gauss integrals along each element's own, possibly curved, edge (``fields.outward_flux``).
 """
 
 from __future__ import annotations
@@ -15,8 +15,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .fields import ElementFields
+from scipy.constants import epsilon_0
+
+from .fields import ElementFields, outward_flux
 from .problem import OUTER_BOUNDARY, AssembledProblem
+from .solve import Solution
 
 
 @dataclass(frozen=True)
@@ -51,11 +54,6 @@ def normal_component(sides: FacetSides, vertex_field: np.ndarray) -> np.ndarray:
     """vertex_field (nelements, 3, 2) . outward normal at both facet ends, shape (n, 2)."""
     values = vertex_field[sides.elements[:, None], sides.local_vertices]  # (n, 2, 2)
     return np.einsum("nkd,nd->nk", values, sides.outward_normals)
-
-
-def integrate(sides: FacetSides, end_values: np.ndarray) -> np.ndarray:
-    """Trapezoidal integral of a linear density over each facet, shape (n,)."""
-    return sides.lengths * end_values.mean(axis=1)
 
 
 @dataclass(frozen=True)
@@ -110,23 +108,31 @@ def _region_faces(problem: AssembledProblem) -> FacetSides:
     return facet_sides(problem, np.concatenate(facets), np.concatenate(elements))
 
 
-def compute_charges(problem: AssembledProblem, fields: ElementFields) -> ChargeResult:
+def _flux(solution: Solution, sides: FacetSides, coefficient: np.ndarray) -> np.ndarray:
+    return outward_flux(solution, sides.elements, sides.local_vertices, sides.outward_normals,
+                        coefficient[sides.elements])
+
+
+def compute_charges(solution: Solution, fields: ElementFields) -> ChargeResult:
+    problem = solution.problem
     section = problem.section
     names = section.region_names
     region = section.region_of_element
+    eps = epsilon_0 * problem.relative_permittivity
 
     conductors = []
     for conductor in problem.conductors:
         sides = facet_sides(problem, conductor.facets, conductor.facet_dielectric_element)
         sigma_f = -normal_component(sides, fields.D)  # n into the dielectric = -outward of its element
+        charge = -float(_flux(solution, sides, eps).sum())
         conductors.append(ConductorCharge(
-            conductor.name, conductor.potential, float(integrate(sides, sigma_f).sum()),
+            conductor.name, conductor.potential, charge,
             float(np.abs(sigma_f).max()) if sigma_f.size else 0.0, sides, sigma_f,
         ))
 
     faces = _region_faces(problem)
     p_n = normal_component(faces, fields.P)
-    per_side = integrate(faces, p_n)
+    per_side = _flux(solution, faces, eps - epsilon_0)
     side_region = region[faces.elements]
     bodies = []
     for index, name in enumerate(names):
@@ -161,8 +167,8 @@ def compute_charges(problem: AssembledProblem, fields: ElementFields) -> ChargeR
     a = np.where((cond >= 0) & ((f2t[0] < 0) | ~problem.dielectric[np.maximum(f2t[0], 0)]), n_regions + cond, a)
     b = np.where((cond >= 0) & ((f2t[1] < 0) | ~problem.dielectric[np.maximum(f2t[1], 0)]), n_regions + cond, b)
     pair_lo, pair_hi = np.minimum(a, b), np.maximum(a, b)
-    lengths = np.hypot(*(mesh.p[:, mesh.facets[0, unique_facets]] - mesh.p[:, mesh.facets[1, unique_facets]]))
-    totals = lengths * sigma_b.mean(axis=1)
+    totals = np.zeros(unique_facets.size)
+    np.add.at(totals, inverse, per_side)
     interfaces = []
     pair_key = pair_lo * (len(labels) + 1) + pair_hi
     for key in np.unique(pair_key):

@@ -16,6 +16,9 @@ from .solve import Solution
 
 # reference-triangle vertices, in the order of the mesh's element-to-vertex table
 _VERTICES = np.array([[0.0, 1.0, 0.0], [0.0, 0.0, 1.0]])
+_EDGES = ((0, 1), (1, 2), (0, 2))  # local vertex pairs of the three edges
+_GAUSS_S, _GAUSS_W = np.polynomial.legendre.leggauss(5)
+_GAUSS_S, _GAUSS_W = 0.5 * (_GAUSS_S + 1.0), 0.5 * _GAUSS_W  # on [0, 1]
 
 
 @dataclass(frozen=True)
@@ -62,3 +65,34 @@ def element_fields(solution: Solution) -> ElementFields:
     u = solution.potential
     energy = 0.5 * float(u @ (problem.stiffness @ u))
     return ElementFields(E, D, P, energy)
+
+
+def outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.ndarray,
+                 chord_normals: np.ndarray, coefficient: np.ndarray) -> np.ndarray:
+    """Integral over an element edge of ``coefficient * E . n_out``, one value per (element, edge).
+
+    ``local_vertices`` (n, 2) names the edge by its local vertices, ``chord_normals`` (n, 2) gives the
+    outward direction and ``coefficient`` (n,) multiplies E (eps for D, eps - eps0 for P).
+    Gauss quadrature on the element's own (possibly curved) edge, through its mapping, so the
+    integral is exact for P2 on straight edges and follows arcs on curved ones.
+    """
+    problem = solution.problem
+    mesh = problem.section.mesh
+    out = np.zeros(len(elements))
+    low, high = local_vertices.min(axis=1), local_vertices.max(axis=1)
+    for k, (a, b) in enumerate(_EDGES):
+        on_edge = np.flatnonzero((low == a) & (high == b))
+        if on_edge.size == 0:
+            continue
+        start, direction = _VERTICES[:, a], _VERTICES[:, b] - _VERTICES[:, a]
+        points = start[:, None] + direction[:, None] * _GAUSS_S[None, :]
+        tind = elements[on_edge]
+        basis = Basis(mesh, problem.basis.elem, quadrature=(points, _GAUSS_W), elements=tind)
+        grad = np.asarray(basis.interpolate(solution.potential).grad)  # (2, n, q)
+        jacobian = basis.mapping.DF(points, tind=tind)  # (2, 2, n, q)
+        tangent = np.einsum("ijnq,j->inq", jacobian, direction)  # dx/ds, |.| is the length element
+        normal = np.stack([tangent[1], -tangent[0]])
+        sign = np.sign(np.einsum("inq,ni->n", normal, chord_normals[on_edge]))
+        e_dot_n = -np.einsum("inq,inq->nq", grad, normal)
+        out[on_edge] = coefficient[on_edge] * sign * (e_dot_n @ _GAUSS_W)
+    return out

@@ -52,7 +52,7 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
     problem = stage("assemble", lambda: assemble(case, section))
     solution = stage("solve", lambda: solve(problem))
     fields = stage("fields", lambda: element_fields(solution))
-    charges = stage("charges", lambda: compute_charges(problem, fields))
+    charges = stage("charges", lambda: compute_charges(solution, fields))
     capacitance = stage("capacitance", lambda: compute_capacitance(solution, fields, charges))
     hotspots = stage("hotspots", lambda: find_hotspots(problem, fields, case.hotspot_fraction))
     return SectionResult(case, section, problem, solution, fields, charges, capacitance, hotspots, seconds)

@@ -100,3 +100,18 @@ def test_p2_converges_faster_than_p1():
     assert p2_slope < -1.5
     assert p2_dofs == pytest.approx(p1_dofs, rel=0.2)  # compared at about the same cost
     assert p2_error < p1_error / 100
+
+
+def test_meshed_conductor_region_gives_the_same_line():
+    # the inner conductor as a meshed surface held at V instead of a hole: same closed form
+    result = solve_script("coaxial.geo", {"insulation": PTFE_LIKE}, {"core": V, "outer": 0.0},
+                          parameters={"lc": 0.1, "meshed_core": 1})
+    cap = result.capacitance.two_level
+    assert cap.high == ("core",)
+    assert cap.from_energy == pytest.approx(C_EXACT, rel=1e-3)
+    assert cap.from_flux == pytest.approx(C_EXACT, rel=5e-3)
+    assert result.hotspots.region_peaks[0].peak_E == pytest.approx(E_INNER, rel=1e-2)
+    core = result.section.elements_of("core")
+    assert not result.problem.dielectric[core].any()
+    assert np.abs(result.fields.E[core]).max() == 0.0  # no field inside a conductor
+    assert [b.region for b in result.charges.bodies] == ["insulation"]
