@@ -6,8 +6,10 @@ The case file schema (documented in the README) is fieldsection's own::
     [geometry]      script, length_unit, [geometry.parameters]
     [regions]       physical surface name -> material name
     [materials.X]   case-defined materials
-    [electrodes]    physical curve/surface name -> potential ("12 kV", or { potential = ... })
-    [boundary]      outer = "grounded" | "insulated"
+    [electrodes]    physical curve/surface name -> potential ("12 kV", or { potential = ... }),
+                    or a floating conductor { floating = true, charge = "0 C/m" }
+    [boundary]      outer = "grounded" | "insulated" | "open"; [boundary.curves] name = "insulated"
+    [symmetry]      copies = 2 (the model is half of the full section)
     [hotspots]      fraction = 0.5
     [mesh]          size, near_electrodes, element_order, curved, [mesh.region_sizes]
 
@@ -32,7 +34,9 @@ from .units import to_si
 OUTER_BOUNDARY_KINDS = {
     "grounded": "held at 0 V (a grounded enclosure)",
     "insulated": "zero normal D (a symmetry line or an insulated far wall)",
+    "open": "unbounded free space beyond a circle, by inversion of the exterior onto a disc",
 }
+CURVE_KINDS = ("insulated",)
 ELEMENT_ORDERS = (1, 2)
 DEFAULT_HOTSPOT_FRACTION = 0.5
 
@@ -93,23 +97,45 @@ class Case:
     mesh: MeshSettings = field(default_factory=MeshSettings)
     title: str = ""
     source_file: Path | None = None
+    floating: Mapping[str, float] = field(default_factory=dict)  # name -> net charge, C/m
+    insulated_curves: frozenset[str] = frozenset()  # symmetry lines and insulated walls among the curves
+    symmetry_copies: int = 1  # the model is 1/copies of the full section
 
     def __post_init__(self) -> None:
         if not self.regions:
             raise CaseFileError(f"case {self.name!r}: no [regions]; map every physical surface to a material")
         if not self.electrodes:
+            detail = " (only floating ones: one conductor needs a fixed potential)" if self.floating else ""
             raise CaseFileError(
-                f"case {self.name!r}: no [electrodes]; give at least one physical curve or surface a potential"
+                f"case {self.name!r}: no electrode with a potential{detail}; give at least one physical curve "
+                "or surface a potential under [electrodes]"
             )
-        both = sorted(set(self.regions) & set(self.electrodes))
+        for label, names in [("an electrode", set(self.electrodes) | set(self.floating)),
+                             ("an insulated curve", set(self.insulated_curves))]:
+            both = sorted(set(self.regions) & names)
+            if both:
+                raise CaseFileError(
+                    f"{both[0]!r} is both a dielectric region and {label}; a conductor region is an "
+                    "electrode only: remove it from [regions]"
+                )
+        clash = sorted((set(self.electrodes) | set(self.floating)) & set(self.insulated_curves))
+        if clash:
+            raise CaseFileError(f"{clash[0]!r} is both an electrode and an insulated curve; keep one")
+        both = sorted(set(self.electrodes) & set(self.floating))
         if both:
-            raise CaseFileError(
-                f"{both[0]!r} is both a dielectric region and an electrode; a conductor region is an "
-                "electrode only: remove it from [regions]"
-            )
+            raise CaseFileError(f"electrodes.{both[0]}: both a potential and floating; give one of the two")
         for name, potential in self.electrodes.items():
             if not math.isfinite(potential):
                 raise CaseFileError(f"electrodes.{name}: potential {potential!r} is not finite")
+        for name, charge in self.floating.items():
+            if not math.isfinite(charge):
+                raise CaseFileError(f"electrodes.{name}: charge {charge!r} is not finite")
+        copies = self.symmetry_copies
+        if isinstance(copies, bool) or not isinstance(copies, int) or copies < 1:
+            raise CaseFileError(
+                f"symmetry.copies = {copies!r}: a whole number >= 1, how many copies of the model make the "
+                "full section (2 for a half model, 4 for a quarter)"
+            )
         if self.outer_boundary not in OUTER_BOUNDARY_KINDS:
             raise CaseFileError(
                 f"boundary.outer = {self.outer_boundary!r}: use one of {', '.join(map(repr, OUTER_BOUNDARY_KINDS))}"
@@ -122,9 +148,16 @@ class Case:
             )
         object.__setattr__(self, "regions", MappingProxyType(dict(self.regions)))
         object.__setattr__(self, "electrodes", MappingProxyType(dict(self.electrodes)))
+        object.__setattr__(self, "floating", MappingProxyType(dict(self.floating)))
+        object.__setattr__(self, "insulated_curves", frozenset(self.insulated_curves))
+
+    @property
+    def conductor_names(self) -> frozenset[str]:
+        """Every electrode, with a fixed potential or floating."""
+        return frozenset(self.electrodes) | frozenset(self.floating)
 
 
-_TOP_KEYS = {"title", "geometry", "regions", "materials", "electrodes", "boundary", "hotspots", "mesh"}
+_TOP_KEYS = {"title", "geometry", "regions", "materials", "electrodes", "boundary", "hotspots", "mesh", "symmetry"}
 
 
 def _table(data: Mapping[str, Any], key: str, where: str) -> Mapping[str, Any]:
@@ -149,14 +182,26 @@ def _script_parameter(name: str, value: Any, length_unit_m: float) -> float:
     return to_si(value, "length", f"geometry.parameters.{name}") / length_unit_m
 
 
-def _potential(name: str, value: Any) -> float:
+def _electrode(name: str, value: Any) -> tuple[str, float]:
+    """("potential", V) or ("floating", net charge in C/m) from an [electrodes] entry."""
     where = f"electrodes.{name}"
     if isinstance(value, Mapping):
-        _check_keys(value, {"potential"}, where)
+        _check_keys(value, {"potential", "floating", "charge"}, where)
+        floating = value.get("floating", False)
+        if not isinstance(floating, bool):
+            raise CaseFileError(f"{where}: floating must be true or false, got {floating!r}")
+        if floating:
+            if "potential" in value:
+                raise CaseFileError(f"{where}: a floating conductor takes its potential from the solve; "
+                                    "remove 'potential' or 'floating'")
+            return "floating", to_si(value.get("charge", 0.0), "charge", f"{where}.charge")
+        if "charge" in value:
+            raise CaseFileError(f"{where}: a charge is given only to a floating conductor; add floating = true")
         if "potential" not in value:
-            raise CaseFileError(f"{where}: give its potential, e.g. {name} = {{ potential = '1 kV' }}")
+            raise CaseFileError(f"{where}: give its potential, e.g. {name} = {{ potential = '1 kV' }}, "
+                                "or make it floating = true")
         value = value["potential"]
-    return to_si(value, "voltage", where)
+    return "potential", to_si(value, "voltage", where)
 
 
 def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
@@ -212,10 +257,24 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         except FieldSectionError as exc:
             raise CaseFileError(f"regions.{region}: {exc}") from None
 
-    electrodes = {str(k): _potential(str(k), v) for k, v in _table(data, "electrodes", where).items()}
+    electrodes: dict[str, float] = {}
+    floating: dict[str, float] = {}
+    for key, value in _table(data, "electrodes", where).items():
+        kind, number = _electrode(str(key), value)
+        (floating if kind == "floating" else electrodes)[str(key)] = number
 
     boundary = _table(data, "boundary", where)
-    _check_keys(boundary, {"outer"}, f"{where} [boundary]")
+    _check_keys(boundary, {"outer", "curves"}, f"{where} [boundary]")
+    insulated = set()
+    for curve, kind in _table(boundary, "curves", f"{where} [boundary]").items():
+        if kind not in CURVE_KINDS:
+            raise CaseFileError(
+                f"boundary.curves.{curve} = {kind!r}: use {' or '.join(map(repr, CURVE_KINDS))} (zero normal D); "
+                "a curve at a fixed potential is an electrode"
+            )
+        insulated.add(str(curve))
+    symmetry = _table(data, "symmetry", where)
+    _check_keys(symmetry, {"copies"}, f"{where} [symmetry]")
     hotspots = _table(data, "hotspots", where)
     _check_keys(hotspots, {"fraction"}, f"{where} [hotspots]")
     mesh_table = _table(data, "mesh", where)
@@ -247,6 +306,9 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         hotspot_fraction=hotspots.get("fraction", DEFAULT_HOTSPOT_FRACTION),
         mesh=mesh,
         source_file=path.resolve(),
+        floating=floating,
+        insulated_curves=frozenset(insulated),
+        symmetry_copies=symmetry.get("copies", 1),
     )
 
 

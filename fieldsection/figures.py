@@ -171,7 +171,7 @@ def plot_regions(problem: AssembledProblem, path: str | os.PathLike) -> Path:
         colour = _ELECTRODE_COLOURS[k % len(_ELECTRODE_COLOURS)]
         segments = _segments_mm(problem, conductor.facets)
         ax.add_collection(LineCollection(segments, colors=colour, linewidths=2.4, zorder=4))
-        label = f"{conductor.name}: {format_voltage(conductor.potential)}"
+        label = f"{conductor.name}: " + ("floating" if conductor.floating else format_voltage(conductor.potential))
         handles.append(Line2D([], [], color=colour, linewidth=2.4, label=f"electrode {label}"))
         midpoints = segments.mean(axis=1)
         top = midpoints[np.argmax(midpoints[:, 1])]  # label at the electrode's highest point

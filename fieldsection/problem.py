@@ -27,9 +27,11 @@ _ELEMENTS = {1: ElementTriP1, 2: ElementTriP2}
 
 @dataclass(frozen=True)
 class Conductor:
-    """A set of DOFs held at one potential, and the facets where it meets the dielectric.
+    """A set of DOFs at one potential, and the facets where it meets the dielectric.
 
-    ``facet_dielectric_element[k]`` is the dielectric element beside ``facets[k]``.
+    ``facet_dielectric_element[k]`` is the dielectric element beside ``facets[k]``. A floating
+    conductor's potential is an unknown of the solve (``potential`` is NaN here) and ``charge``
+    is its given net charge; otherwise ``potential`` is imposed.
     """
 
     name: str
@@ -38,6 +40,8 @@ class Conductor:
     facets: np.ndarray
     facet_dielectric_element: np.ndarray
     is_region: bool = False
+    floating: bool = False
+    charge: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -53,6 +57,16 @@ class AssembledProblem:
     conductors: tuple[Conductor, ...]
     free_dofs: np.ndarray
     outer_boundary: str
+    symmetry_copies: int = 1
+
+    @property
+    def fixed(self) -> tuple[Conductor, ...]:
+        """Conductors held at a given potential (the rows of the capacitance matrix)."""
+        return tuple(c for c in self.conductors if not c.floating)
+
+    @property
+    def floating(self) -> tuple[Conductor, ...]:
+        return tuple(c for c in self.conductors if c.floating)
 
     @property
     def element_order(self) -> int:
@@ -73,7 +87,13 @@ def _check_names(case: Case, section: SectionMesh) -> None:
                 f"regions.{region}: no physical surface {region!r} in the geometry{hint}; "
                 f"physical surfaces there: {', '.join(sorted(surfaces))}"
             )
-    for electrode in case.electrodes:
+    for curve in case.insulated_curves:
+        if curve not in curves:
+            raise CaseFileError(
+                f"boundary.curves.{curve}: no physical curve {curve!r} in the geometry; "
+                f"curves there: {', '.join(sorted(curves)) or 'none'}"
+            )
+    for electrode in sorted(case.conductor_names):
         if electrode not in surfaces and electrode not in curves:
             raise CaseFileError(
                 f"electrodes.{electrode}: no physical curve or surface {electrode!r} in the geometry; "
@@ -81,7 +101,7 @@ def _check_names(case: Case, section: SectionMesh) -> None:
             )
         if electrode in surfaces and electrode in curves:
             raise CaseFileError(f"electrodes.{electrode}: both a physical curve and a surface have this name; rename one")
-    unassigned = sorted(surfaces - set(case.regions) - set(case.electrodes))
+    unassigned = sorted(surfaces - set(case.regions) - case.conductor_names)
     if unassigned:
         raise CaseFileError(
             f"region {unassigned[0]!r} has no material: add {unassigned[0]} = \"<material>\" under [regions], "
@@ -111,7 +131,7 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
     mesh = section.mesh
     basis = Basis(mesh, _ELEMENTS[case.mesh.element_order](), intorder=2 * case.mesh.element_order)
 
-    conductor_regions = [r for r in case.electrodes if r in section.region_names]
+    conductor_regions = [r for r in case.conductor_names if r in section.region_names]
     dielectric = np.ones(mesh.nelements, dtype=bool)
     er = np.ones(mesh.nelements)
     for region, material in case.regions.items():
@@ -125,7 +145,8 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
     stiffness = permittivity_laplace.assemble(basis, eps=(epsilon_0 * er)[:, None]).tocsr()
 
     conductors: list[Conductor] = []
-    for name, potential in case.electrodes.items():
+    wanted = [(name, v, False) for name, v in case.electrodes.items()] + [(n, q, True) for n, q in case.floating.items()]
+    for name, value, floating in wanted:
         if name in conductor_regions:
             elements = section.elements_of(name)
             dofs = basis.get_dofs(elements=elements).all()
@@ -142,10 +163,17 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
             is_region = False
         side = _dielectric_side(section, facets, dielectric, f"electrode {name!r}") if facets.size else facets
         keep = side >= 0
-        conductors.append(Conductor(name, potential, np.unique(dofs), facets[keep], side[keep], is_region))
+        if floating and not keep.any():
+            raise CaseFileError(
+                f"floating electrode {name!r} touches no dielectric, so its potential is undefined; surround it "
+                "with insulation in the geometry"
+            )
+        conductors.append(Conductor(name, np.nan if floating else value, np.unique(dofs), facets[keep], side[keep],
+                                    is_region, floating, value if floating else 0.0))
 
     if case.outer_boundary == "grounded":
         claimed = [section.curve_facets[c.name] for c in conductors if not c.is_region]
+        claimed += [section.curve_facets[name] for name in case.insulated_curves]
         outer = np.setdiff1d(mesh.boundary_facets(), np.concatenate(claimed) if claimed else [])
         outer = outer[dielectric[mesh.f2t[0, outer]]]
         if outer.size:
@@ -156,11 +184,11 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
             conductors.append(Conductor(OUTER_BOUNDARY, 0.0, np.unique(dofs), outer, mesh.f2t[0, outer]))
 
     _check_touching(conductors, basis)
-    fixed = np.concatenate([c.dofs for c in conductors])
-    free = np.setdiff1d(np.arange(basis.N), fixed)
+    taken = np.concatenate([c.dofs for c in conductors])
+    free = np.setdiff1d(np.arange(basis.N), taken)
     material_of_region = dict(case.regions)
     return AssembledProblem(section, basis, stiffness, er, material_of_region, dielectric, tuple(conductors),
-                            free, case.outer_boundary)
+                            free, case.outer_boundary, case.symmetry_copies)
 
 
 def _check_touching(conductors: list[Conductor], basis: Basis) -> None:

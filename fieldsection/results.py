@@ -48,6 +48,7 @@ def build_results(result: SectionResult) -> dict[str, Any]:
     edge = np.hypot(*(mesh.p[:, mesh.facets[0]] - mesh.p[:, mesh.facets[1]]))
     pf = 1e12
 
+    floating_potential = {c.name: float(v) for c, v in zip(problem.floating, result.solution.floating_potentials)}
     bodies = []
     for body in result.charges.bodies:
         imbalance = abs(body.bound_charge) / body.absolute_bound_charge if body.absolute_bound_charge > 0 else 0.0
@@ -68,9 +69,9 @@ def build_results(result: SectionResult) -> dict[str, Any]:
             "voltage_V": t.voltage,
             "from_energy_pF_per_m": t.from_energy * pf,
             "from_electrode_charge_pF_per_m": t.from_charge * pf,
-            "from_surface_flux_pF_per_m": t.from_flux * pf,
+            "from_surface_flux_pF_per_m": _num(t.from_flux, pf),
             "relative_difference_charge_vs_energy": t.relative_difference,
-            "relative_difference_flux_vs_energy": t.flux_relative_difference,
+            "relative_difference_flux_vs_energy": _num(t.flux_relative_difference),
         }
 
     return {
@@ -111,7 +112,8 @@ def build_results(result: SectionResult) -> dict[str, Any]:
         "electrodes": [
             {
                 "name": c.name,
-                "potential_V": c.potential,
+                "floating": c.floating,
+                "potential_V": floating_potential.get(c.name, c.potential),
                 "charge_from_reaction_C_per_m": float(cap.charges_from_reaction[i]),
                 "charge_from_surface_flux_C_per_m": float(cap.charges_from_flux[i]),
                 "peak_free_surface_charge_uC_per_m2": result.charges.conductors[i].peak_abs_sigma_f * 1e6,
@@ -125,6 +127,9 @@ def build_results(result: SectionResult) -> dict[str, Any]:
             "relative_difference_charge_vs_energy": cap.relative_difference,
             "relative_asymmetry": cap.asymmetry,
             "mutual_pF_per_m": (cap.mutual * pf).tolist(),
+            "to_reference_pF_per_m": (cap.to_reference * pf).tolist(),
+            "diagonally_dominant": cap.diagonally_dominant,
+            "symmetry_copies": cap.copies,
             "two_level": two_level,
         },
         "energy_per_length_J_per_m": cap.energy_per_length,

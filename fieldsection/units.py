@@ -16,7 +16,7 @@ SI_UNITS = {
     "length": "m",
     "voltage": "V",
     "field": "V/m",
-    "charge": "C/m",
+    "charge": "C/m",  # per unit length of a planar section
     "dimensionless": "",
 }
 

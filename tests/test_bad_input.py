@@ -99,7 +99,7 @@ def test_gmsh_syntax_error_names_the_line(tmp_path, capsys):
         ('gap = "PTFE"', 'gap = "bad"\n[materials.bad]\nrelative_permittivity = 0.5', r"below 1"),
         ('top = "1 kV"', 'top = "1 kV"\ntop = "2 kV"', r"line 10.*\[top = \"2 kV\"\].*exactly one potential"),
         ('top = "1 kV"', 'top = "1 mm"', r"electrodes\.top: '1 mm' is not a voltage"),
-        ('outer = "insulated"', 'outer = "open"', r"boundary\.outer = 'open'"),
+        ('outer = "insulated"', 'outer = "earthed"', r"boundary\.outer = 'earthed'"),
     ],
 )
 def test_case_file_errors(tmp_path, capsys, old, new, expected):
