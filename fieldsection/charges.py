@@ -18,6 +18,7 @@ import numpy as np
 from scipy.constants import epsilon_0
 
 from .fields import ElementFields, outward_flux
+from .mesh import EXTERIOR
 from .problem import OUTER_BOUNDARY, AssembledProblem
 from .solve import Solution
 
@@ -137,7 +138,7 @@ def compute_charges(solution: Solution, fields: ElementFields) -> ChargeResult:
     bodies = []
     for index, name in enumerate(names):
         mine = side_region == index
-        if not problem.dielectric[region == index].any():
+        if name == EXTERIOR or not problem.dielectric[region == index].any():
             continue
         bodies.append(BodyCharge(name, float(per_side[mine].sum()),
                                  float((faces.lengths[mine] * np.abs(p_n[mine]).mean(axis=1)).sum())))

@@ -29,6 +29,7 @@ from .charges import ChargeResult
 from .errors import ReportError
 from .fields import ElementFields
 from .hotspots import HotspotResult
+from .mesh import EXTERIOR
 from .problem import AssembledProblem
 from .solve import Solution
 
@@ -62,8 +63,10 @@ def _vertices_mm(problem: AssembledProblem) -> np.ndarray:
 
 
 def _triangulation(problem: AssembledProblem, mask: np.ndarray | None = None) -> Triangulation:
+    """The corner triangulation; the mapped exterior of an open-space circle is always masked out."""
     xy = _vertices_mm(problem)
-    return Triangulation(xy[0], xy[1], problem.section.mesh.t.T, mask=mask)
+    hidden = problem.section.exterior if mask is None else (mask | problem.section.exterior)
+    return Triangulation(xy[0], xy[1], problem.section.mesh.t.T, mask=hidden if hidden.any() else None)
 
 
 def _segments_mm(problem: AssembledProblem, facets: np.ndarray) -> np.ndarray:
@@ -149,6 +152,8 @@ def plot_regions(problem: AssembledProblem, path: str | os.PathLike) -> Path:
     colours = _region_colours(problem)
     handles: list = []
     for index, name in enumerate(section.region_names):
+        if name == EXTERIOR:
+            continue
         material = problem.material_of_region.get(name)
         what = (f"{material.name} (εr = {material.relative_permittivity:.3g})" if material is not None
                 else "conductor")
@@ -157,7 +162,9 @@ def plot_regions(problem: AssembledProblem, path: str | os.PathLike) -> Path:
 
     n = mesh.nelements
     if n < MAX_ELEMENTS_WITH_EDGES:
-        ax.add_collection(LineCollection(_segments_mm(problem, np.arange(mesh.nfacets)),
+        f2t, outside = mesh.f2t, section.exterior
+        drawn = ~outside[f2t[0]] | ((f2t[1] >= 0) & ~outside[np.maximum(f2t[1], 0)])
+        ax.add_collection(LineCollection(_segments_mm(problem, np.flatnonzero(drawn)),
                                          colors="#4d4d4d", linewidths=0.2, alpha=0.7, zorder=2))
         edges_note = f"{n} elements, P{problem.element_order}"
     else:

@@ -79,11 +79,27 @@ def mesh_geometry(
     electrode_names: frozenset[str] = frozenset(),
 ) -> RawMesh:
     """Load ``geometry`` into gmsh, mesh it in 2D and return the arrays."""
-    if sys.platform != "linux":  # no safe fork: mesh in this process
-        return _mesh_here(geometry, settings, electrode_names)
+    return _isolated(_mesh_here, geometry, settings, electrode_names)
+
+
+def mesh_disc(boundary: np.ndarray, centre: np.ndarray, closed: bool = True) -> tuple[np.ndarray, np.ndarray]:
+    """Triangulate the disc (or sector) bounded by the ordered arc ``boundary`` (n, 2) about ``centre``.
+
+    ``closed``: the arc is a full circle and ``centre`` an interior node; otherwise the sector is closed
+    by two straight spokes from the arc's last point to the centre and from the centre to its first.
+    Returns ``points`` (m, 2), whose first n rows are exactly ``boundary`` and row n is ``centre``,
+    and ``triangles`` (k, 3). No node is added on the arc; sizes grow from the arc towards the centre.
+    """
+    return _isolated(_disc_here, np.asarray(boundary, dtype=float), np.asarray(centre, dtype=float), closed)
+
+
+def _isolated(work, *args):
+    """Run ``work(*args)`` in a forked child (see the module docstring); return its value or raise its error."""
+    if sys.platform != "linux":  # no safe fork: run in this process
+        return work(*args)
     context = multiprocessing.get_context("fork")
     receiver, sender = context.Pipe(duplex=False)
-    child = context.Process(target=_child, args=(sender, geometry, settings, electrode_names), daemon=True)
+    child = context.Process(target=_child, args=(sender, work, args), daemon=True)
     child.start()
     sender.close()
     try:
@@ -102,9 +118,9 @@ def mesh_geometry(
     return payload
 
 
-def _child(sender, geometry, settings, electrode_names) -> None:
+def _child(sender, work, args) -> None:
     try:
-        sender.send(("ok", _mesh_here(geometry, settings, electrode_names)))
+        sender.send(("ok", work(*args)))
     except (GeometryError, MeshError) as exc:
         sender.send(("error", exc))
     except BaseException as exc:  # anything else from gmsh or a builder, as a readable error
@@ -153,6 +169,48 @@ def _mesh_here(
             _commit_pygmsh_queues(gmsh, geom)
             return _mesh_current_model(gmsh, settings, geometry.length_unit_m, electrode_names)
     raise TypeError(f"unsupported geometry source {type(geometry).__name__}")
+
+
+def _disc_here(boundary: np.ndarray, centre: np.ndarray, closed: bool) -> tuple[np.ndarray, np.ndarray]:
+    n = len(boundary)
+    spacing = np.hypot(*np.diff(boundary, axis=0, append=boundary[:1]).T)
+    if not closed:
+        spacing[-1] = spacing[-2]  # the last point has no arc neighbour after it
+    local = 0.5 * (spacing + np.roll(spacing, 1))
+    radius = float(np.hypot(*(boundary - centre).T).mean())
+    with _gmsh_session() as gmsh:
+        _quiet(gmsh)
+        gmsh.model.add("exterior")
+        geo = gmsh.model.geo
+        tags = [geo.addPoint(x, y, 0.0, float(h)) for (x, y), h in zip(boundary, local)]
+        middle = geo.addPoint(float(centre[0]), float(centre[1]), 0.0, max(radius / 4, float(local.max())))
+        arc = [geo.addLine(tags[k], tags[k + 1]) for k in range(n - 1)]
+        lines = arc + ([geo.addLine(tags[-1], tags[0])] if closed else [geo.addLine(tags[-1], middle),
+                                                                       geo.addLine(middle, tags[0])])
+        surface = geo.addPlaneSurface([geo.addCurveLoop(lines)])
+        geo.synchronize()
+        for line in lines[: n if closed else n - 1]:  # keep the arc's nodes exactly those given
+            gmsh.model.mesh.setTransfiniteCurve(line, 2)
+        if closed:
+            gmsh.model.mesh.embed(0, [middle], 2, surface)
+        try:
+            gmsh.model.mesh.generate(2)
+        except Exception as exc:
+            raise MeshError(f"gmsh could not mesh the open-space disc: {exc}") from None
+        node_tags, coords, _ = gmsh.model.mesh.getNodes()
+        node_tags = node_tags.astype(np.int64)
+        index_of = np.full(node_tags.max() + 1, -1, dtype=np.int64)
+        # boundary points first, then the centre, then the interior nodes in gmsh's order
+        fixed = np.array([int(gmsh.model.mesh.getNodes(0, t)[0][0]) for t in tags + [middle]])
+        rest = np.setdiff1d(node_tags, fixed)
+        index_of[fixed] = np.arange(fixed.size)
+        index_of[rest] = fixed.size + np.arange(rest.size)
+        points = np.zeros((node_tags.size, 2))
+        points[index_of[node_tags]] = coords.reshape(-1, 3)[:, :2]
+        points[:n] = boundary  # exact, not gmsh's rounding
+        _, element_nodes = gmsh.model.mesh.getElementsByType(_TRI3, surface)
+        triangles = index_of[element_nodes.astype(np.int64)].reshape(-1, 3)
+    return points, triangles
 
 
 def _commit_pygmsh_queues(gmsh, geom) -> None:

@@ -9,7 +9,10 @@ import numpy as np
 from skfem import MeshTri1, MeshTri2
 
 from .errors import MeshError
-from .gmsh_adapter import RawMesh
+from .gmsh_adapter import RawMesh, mesh_disc
+
+#: region name of the mapped exterior of an open-space circle
+EXTERIOR = "open space"
 
 # local corner pairs of gmsh's 6-node triangle mid-edge nodes (columns 3, 4, 5)
 _GMSH_EDGES = ((0, 1), (1, 2), (2, 0))
@@ -21,7 +24,9 @@ class SectionMesh:
 
     ``region_of_element[k]`` indexes ``region_names``; ``curve_facets`` maps each named physical
     curve to scikit-fem facet indices. ``mesh`` is a ``MeshTri1``, or a ``MeshTri2`` whose mid-edge
-    nodes lie on curved boundaries.
+    nodes lie on curved boundaries. Elements of the region ``EXTERIOR`` (if any) are the inverted
+    image of the space outside an open-space circle: they overlap the drawn section in the plane,
+    take part in the solve, and are left out of every plot and field report.
     """
 
     mesh: MeshTri1 | MeshTri2
@@ -29,6 +34,14 @@ class SectionMesh:
     region_of_element: np.ndarray
     curve_facets: Mapping[str, np.ndarray]
     gmsh_warnings: tuple[str, ...] = field(default=())
+    open_circle: "OpenCircle | None" = None
+
+    @property
+    def exterior(self) -> np.ndarray:
+        """True for the elements of the mapped exterior."""
+        if EXTERIOR not in self.region_names:
+            return np.zeros(self.mesh.nelements, dtype=bool)
+        return self.region_of_element == self.region_names.index(EXTERIOR)
 
     @property
     def curved(self) -> bool:
@@ -62,7 +75,140 @@ def _match_facets(mesh: MeshTri1, pairs: np.ndarray, what: str) -> np.ndarray:
     return order[pos]
 
 
-def build_section_mesh(raw: RawMesh) -> SectionMesh:
+@dataclass(frozen=True)
+class OpenCircle:
+    """The arc beyond which space is open: centre and radius (m), its vertices in angular order.
+
+    A full circle, or an arc whose two ends rest on straight boundary lines through the centre
+    (symmetry lines or a ground plane), named ``end_curves`` (first end, last end).
+    """
+
+    centre: np.ndarray
+    radius: float
+    loop: np.ndarray
+    end_curves: tuple[str, str] | None = None
+
+    @property
+    def closed(self) -> bool:
+        return self.end_curves is None
+
+
+def _boundary_edges(corners: np.ndarray) -> np.ndarray:
+    edges = np.sort(np.concatenate([corners[:, [0, 1]], corners[:, [1, 2]], corners[:, [2, 0]]]), axis=1)
+    unique, counts = np.unique(edges, axis=0, return_counts=True)
+    return unique[counts == 1]
+
+
+_NOT_A_CIRCLE = (
+    "boundary.outer = 'open' needs the free outer boundary to be a circle (a gmsh Circle or Disk), or an arc "
+    "centred on the straight symmetry or ground lines it ends on; it is not. Draw such a circle around the "
+    "section, or use 'grounded' or 'insulated'"
+)
+
+
+def find_open_circle(raw: RawMesh, closed_curves: frozenset[str]) -> OpenCircle:
+    """The part of the boundary not in ``closed_curves`` (electrodes, insulated curves): a circle or an arc."""
+    corners = raw.triangles[:, :3]
+    edges = _boundary_edges(corners)
+    n = len(raw.points)
+    key = np.array([n, 1])
+    named = {c: np.sort(raw.curve_groups[c], axis=1) @ key for c in closed_curves if c in raw.curve_groups}
+    if named:
+        edges = edges[~np.isin(edges @ key, np.concatenate(list(named.values())))]
+    if len(edges) == 0:
+        raise MeshError("boundary.outer = 'open', but every boundary curve is an electrode or insulated; draw the "
+                        "outer boundary as a circle around the section")
+    vertices = np.unique(edges)
+    xy = raw.points[vertices]
+    # algebraic (Kasa) circle fit: x^2 + y^2 = 2 a x + 2 b y + c
+    design = np.column_stack([2 * xy, np.ones(len(xy))])
+    (a, b, c), *_ = np.linalg.lstsq(design, (xy**2).sum(axis=1), rcond=None)
+    centre = np.array([a, b])
+    radius = float(np.sqrt(c + a * a + b * b))
+    degree = np.bincount(edges.ravel(), minlength=n)[vertices]
+    ends = vertices[degree == 1]
+    on_circle = np.abs(np.hypot(*(xy - centre).T) - radius).max() <= 1e-6 * radius
+    if not on_circle or len(xy) < 8 or (degree > 2).any() or len(ends) not in (0, 2):
+        raise MeshError(_NOT_A_CIRCLE)
+    if np.hypot(*(raw.points - centre).T).max() > radius * (1 + 1e-6):
+        raise MeshError("the open-space circle must enclose the whole section; some of it lies outside the circle")
+    angle = np.arctan2(*(xy - centre).T[::-1])
+    order = np.argsort(angle)
+    if len(ends) == 0:
+        return OpenCircle(centre, radius, vertices[order])
+    # an arc: start after the widest angular gap (where the drawn section is cut by its straight lines)
+    gaps = np.diff(angle[order], append=angle[order][0] + 2 * np.pi)
+    loop = vertices[np.roll(order, -(int(np.argmax(gaps)) + 1))]
+    if not set(loop[[0, -1]]) == set(ends):
+        raise MeshError(_NOT_A_CIRCLE)
+    end_curves = []
+    for end in loop[[0, -1]]:
+        touching = [name for name in named if (raw.curve_groups[name] == end).any()]
+        straight = [name for name in touching if _runs_to_centre(raw, name, end, centre, radius)]
+        if not straight:
+            raise MeshError(_NOT_A_CIRCLE)
+        end_curves.append(straight[0])
+    return OpenCircle(centre, radius, loop, (end_curves[0], end_curves[1]))
+
+
+def _runs_to_centre(raw: RawMesh, curve: str, end: int, centre: np.ndarray, radius: float) -> bool:
+    """Whether ``curve``'s segment at vertex ``end`` lies on the ray from the circle's centre to ``end``."""
+    segments = raw.curve_groups[curve]
+    at_end = segments[(segments == end).any(axis=1)]
+    other = np.where(at_end[:, 0] == end, at_end[:, 1], at_end[:, 0])
+    ray = raw.points[end] - centre
+    step = raw.points[other] - raw.points[end]
+    cross = ray[0] * step[:, 1] - ray[1] * step[:, 0]
+    return bool((np.abs(cross) <= 1e-6 * radius * np.hypot(*step.T)).any())
+
+
+def add_open_space(raw: RawMesh, circle: OpenCircle) -> RawMesh:
+    """Append the space beyond ``circle``, inverted onto a disc (or sector), as the region ``EXTERIOR``.
+
+    The inversion x -> c + R^2 (x - c)/|x - c|^2 fixes the circle pointwise and, in 2D, is conformal:
+    the Laplace equation and the energy keep their form, so the exterior becomes an ordinary disc of
+    the same permittivity whose rim nodes are the circle's own nodes and whose centre is infinity.
+    Straight lines through the centre map onto themselves: a sector's two spokes continue the
+    curves its arc ends on (a ground plane stays an electrode, a symmetry line stays insulated).
+    """
+    loop_points = raw.points[circle.loop]
+    disc_points, disc_triangles = mesh_disc(loop_points, circle.centre, circle.closed)
+    n_loop, n_old = len(circle.loop), len(raw.points)
+    new_index = np.concatenate([circle.loop, n_old + np.arange(len(disc_points) - n_loop)])
+    triangles = new_index[disc_triangles]
+    if raw.triangles.shape[1] == 6:  # straight exterior edges, except those on the circle (set from the section)
+        triangles = np.column_stack([triangles, np.full((len(triangles), 3), -1)])
+    points = np.concatenate([raw.points, disc_points[n_loop:]])
+    curve_groups = dict(raw.curve_groups)
+    if not circle.closed:
+        spokes = _spokes(points, triangles[:, :3], circle, n_old)
+        for name, spoke in zip(circle.end_curves, spokes):
+            curve_groups[name] = np.concatenate([curve_groups[name], spoke])
+    rows = np.arange(len(raw.triangles), len(raw.triangles) + len(triangles))
+    return RawMesh(points, np.concatenate([raw.triangles, triangles]), {**raw.surface_groups, EXTERIOR: rows},
+                   curve_groups, raw.warnings)
+
+
+def _spokes(points: np.ndarray, exterior: np.ndarray, circle: OpenCircle, n_old: int) -> list[np.ndarray]:
+    """Boundary edges of the exterior sector on each straight spoke (first arc end, last arc end)."""
+    edges = _boundary_edges(exterior)
+    centre_node = n_old  # row n of the disc points, placed first among the new points
+    result = []
+    for end in circle.loop[[0, -1]]:
+        ray = points[end] - circle.centre
+        rel = points[edges] - circle.centre  # (k, 2 ends, 2)
+        cross = ray[0] * rel[..., 1] - ray[1] * rel[..., 0]
+        along = (rel @ ray) >= -1e-9 * circle.radius**2
+        on_ray = (np.abs(cross) <= 1e-6 * circle.radius**2).all(axis=1) & along.all(axis=1)
+        on_ray &= ~np.isin(edges, circle.loop[1:-1]).any(axis=1)
+        spoke = edges[on_ray]
+        if not np.isin(centre_node, spoke):
+            raise MeshError("the open-space sector could not be closed along its straight edges; report this as a bug")
+        result.append(spoke)
+    return result
+
+
+def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> SectionMesh:
     """Convert gmsh's arrays into a :class:`SectionMesh`; checks the region partition and tags."""
     corners = raw.triangles[:, :3]
     # corner nodes only: mid-edge nodes of curved meshes become facet dofs below
@@ -98,14 +244,17 @@ def build_section_mesh(raw: RawMesh) -> SectionMesh:
         curved = MeshTri2.from_mesh(base)
         edge_pairs = np.concatenate([remap[raw.triangles[:, list(e)]] for e in _GMSH_EDGES])
         mid_nodes = np.concatenate([raw.triangles[:, 3 + k] for k in range(3)])
+        given = mid_nodes >= 0  # -1 marks a straight edge (the mapped exterior)
+        edge_pairs, mid_nodes = edge_pairs[given], mid_nodes[given]
         facets = _match_facets(base, edge_pairs, "mid-edge nodes")
         doflocs = curved.doflocs.copy()
         doflocs[:, base.nvertices + facets] = raw.points[mid_nodes].T
         mesh = replace(curved, doflocs=doflocs)
 
     _check_quality(mesh)
-    _check_conforming(base, names, region_of_element)
-    return SectionMesh(mesh, names, region_of_element, curve_facets, raw.warnings)
+    drawn = region_of_element != (names.index(EXTERIOR) if EXTERIOR in names else -1)
+    _check_conforming(base, names, region_of_element, drawn)
+    return SectionMesh(mesh, names, region_of_element, curve_facets, raw.warnings, open_circle)
 
 
 def _check_quality(mesh: MeshTri1 | MeshTri2) -> None:
@@ -128,7 +277,8 @@ def _check_quality(mesh: MeshTri1 | MeshTri2) -> None:
             raise MeshError("a curved element is inverted (mid-edge node too far off the chord); refine near arcs")
 
 
-def _check_conforming(mesh: MeshTri1, names: tuple[str, ...], region_of_element: np.ndarray) -> None:
+def _check_conforming(mesh: MeshTri1, names: tuple[str, ...], region_of_element: np.ndarray,
+                      drawn: np.ndarray) -> None:
     """Refuse coincident but distinct vertices: surfaces that touch without sharing mesh nodes.
 
     Such a seam silently cuts the field problem in two, so an interface would act as a perfect
@@ -136,10 +286,11 @@ def _check_conforming(mesh: MeshTri1, names: tuple[str, ...], region_of_element:
     """
     from scipy.spatial import cKDTree
 
+    vertices = np.unique(mesh.t[:, drawn])  # the mapped exterior overlaps the section by design
     extent = float(np.ptp(mesh.p, axis=1).max())
-    pairs = cKDTree(mesh.p.T).query_pairs(r=1e-9 * extent, output_type="ndarray")
+    pairs = cKDTree(mesh.p[:, vertices].T).query_pairs(r=1e-9 * extent, output_type="ndarray")
     if len(pairs):
-        i, j = pairs[0]
+        i, j = vertices[pairs[0]]
         touching = [names[region_of_element[np.flatnonzero((mesh.t == v).any(axis=0))[0]]] for v in (i, j)]
         x, y = mesh.p[:, i]
         raise MeshError(

@@ -15,7 +15,7 @@ from .charges import ChargeResult, compute_charges
 from .fields import ElementFields, element_fields
 from .gmsh_adapter import mesh_geometry
 from .hotspots import HotspotResult, find_hotspots
-from .mesh import SectionMesh, build_section_mesh
+from .mesh import SectionMesh, add_open_space, build_section_mesh, find_open_circle
 from .problem import AssembledProblem, assemble
 from .solve import Solution, solve
 
@@ -47,8 +47,12 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
         seconds[name] = time.perf_counter() - start
         return value
 
-    raw = stage("mesh", lambda: mesh_geometry(case.geometry, case.mesh, frozenset(case.electrodes)))
-    section = stage("convert mesh", lambda: build_section_mesh(raw))
+    raw = stage("mesh", lambda: mesh_geometry(case.geometry, case.mesh, case.conductor_names))
+    circle = None
+    if case.outer_boundary == "open":
+        circle = find_open_circle(raw, case.conductor_names | case.insulated_curves)
+        raw = stage("open space", lambda: add_open_space(raw, circle))
+    section = stage("convert mesh", lambda: build_section_mesh(raw, circle))
     problem = stage("assemble", lambda: assemble(case, section))
     solution = stage("solve", lambda: solve(problem))
     fields = stage("fields", lambda: element_fields(solution))

@@ -19,7 +19,7 @@ from .case import Case
 from .errors import CaseFileError, MeshError
 from .forms import permittivity_laplace
 from .materials import Material
-from .mesh import SectionMesh
+from .mesh import EXTERIOR, SectionMesh
 
 OUTER_BOUNDARY = "outer boundary"
 _ELEMENTS = {1: ElementTriP1, 2: ElementTriP2}
@@ -101,7 +101,7 @@ def _check_names(case: Case, section: SectionMesh) -> None:
             )
         if electrode in surfaces and electrode in curves:
             raise CaseFileError(f"electrodes.{electrode}: both a physical curve and a surface have this name; rename one")
-    unassigned = sorted(surfaces - set(case.regions) - case.conductor_names)
+    unassigned = sorted(surfaces - set(case.regions) - case.conductor_names - {EXTERIOR})
     if unassigned:
         raise CaseFileError(
             f"region {unassigned[0]!r} has no material: add {unassigned[0]} = \"<material>\" under [regions], "
@@ -125,6 +125,26 @@ def _dielectric_side(section: SectionMesh, facets: np.ndarray, dielectric: np.nd
     return side
 
 
+def _medium_beyond(case: Case, section: SectionMesh) -> float:
+    """Relative permittivity of the open space: that of the one region all along the circle."""
+    f2t = section.mesh.f2t
+    exterior = section.exterior
+    a, b = f2t[0], f2t[1]
+    on_circle = (b >= 0) & (exterior[a] != exterior[np.maximum(b, 0)])
+    inside = np.where(exterior[a[on_circle]], b[on_circle], a[on_circle])
+    regions = sorted({section.region_names[r] for r in np.unique(section.region_of_element[inside])})
+    if any(r not in case.regions for r in regions):
+        raise CaseFileError(f"electrode {next(r for r in regions if r not in case.regions)!r} touches the open-space "
+                            "circle; draw the circle in the surrounding medium, clear of every conductor")
+    materials = {case.regions[r].relative_permittivity for r in regions}
+    if len(materials) != 1:
+        raise CaseFileError(
+            f"the open-space circle cuts through regions {', '.join(map(repr, regions))} of different materials; "
+            "everything beyond it is taken as one medium, so draw the circle inside the surrounding medium (e.g. air)"
+        )
+    return materials.pop()
+
+
 def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
     """Build K and the conductor DOF sets; checks the case against the mesh's names."""
     _check_names(case, section)
@@ -140,6 +160,11 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
         dielectric[section.elements_of(region)] = False
     if not dielectric.any():
         raise CaseFileError("every region is an electrode; at least one region must be a dielectric")
+    exterior = section.exterior
+    if exterior.any():
+        # the medium continues beyond the circle; its mapped image has no material entry, so it is
+        # never screened for hotspots nor drawn, but its fluxes count (they are conformally invariant)
+        er[exterior] = _medium_beyond(case, section)
 
     # eps[:, None] broadcasts over quadrature points (a flat array would be read as nodal values)
     stiffness = permittivity_laplace.assemble(basis, eps=(epsilon_0 * er)[:, None]).tocsr()

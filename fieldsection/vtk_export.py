@@ -61,11 +61,12 @@ def section_to_meshio(problem: AssembledProblem, solution: Solution, fields: Ele
         "region_id": problem.section.region_of_element.astype(np.int32),
         "relative_permittivity": problem.relative_permittivity.astype(np.float64),
     }
+    drawn = ~problem.section.exterior  # the mapped exterior of an open-space circle is not physical space
     return meshio.Mesh(
         points,
-        [("triangle", np.ascontiguousarray(mesh.t.T, dtype=np.int64))],
+        [("triangle", np.ascontiguousarray(mesh.t[:, drawn].T, dtype=np.int64))],
         point_data={"V": np.ascontiguousarray(solution.potential[:n_vertices], dtype=np.float64)},
-        cell_data={name: [np.ascontiguousarray(values)] for name, values in cell_data.items()},
+        cell_data={name: [np.ascontiguousarray(values[drawn])] for name, values in cell_data.items()},
     )
 
 

@@ -167,3 +167,43 @@ def test_exit_in_script_is_always_refused(tmp_path, capsys):
     case = write_case(tmp_path, geo=PLATES_GEO + "Exit;\n")
     message = run_expecting_error(tmp_path, capsys, case, "--trust-script")
     assert "'Exit' would end the program" in message
+
+
+def test_open_space_needs_a_circle(tmp_path, capsys):
+    case = write_case(tmp_path, PLATES_CASE.replace('outer = "insulated"', 'outer = "open"'))
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert "boundary.outer = 'open' needs the free outer boundary to be a circle" in message
+
+
+SPLIT_DISC_GEO = """\
+SetFactory("OpenCASCADE");
+Disk(1) = {0, 0, 0, 10};
+Rectangle(2) = {0, -10, 0, 10, 20};
+Disk(3) = {-3, 0, 0, 1};
+Disk(4) = {3, 0, 0, 1};
+BooleanFragments{ Surface{1}; Delete; }{ Surface{2}; Delete; }
+BooleanDifference{ Surface{:}; Delete; }{ Surface{3, 4}; Delete; }
+e = 1e-6;
+Physical Surface("left") = Surface In BoundingBox{-10 - e, -10 - e, -e, e, 10 + e, e};
+Physical Surface("right") = Surface In BoundingBox{-e, -10 - e, -e, 10 + e, 10 + e, e};
+Physical Curve("wire_a") = Curve In BoundingBox{-4 - e, -1 - e, -e, -2 + e, 1 + e, e};
+Physical Curve("wire_b") = Curve In BoundingBox{2 - e, -1 - e, -e, 4 + e, 1 + e, e};
+"""
+
+
+def test_open_space_circle_through_two_materials(tmp_path, capsys):
+    case = write_case(tmp_path, """\
+        [geometry]
+        script = "plates.geo"
+        length_unit = "mm"
+        [regions]
+        left = "air"
+        right = "PTFE"
+        [electrodes]
+        wire_a = "1 kV"
+        wire_b = "0 V"
+        [boundary]
+        outer = "open"
+        """, geo=SPLIT_DISC_GEO)
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert "open-space circle cuts through regions 'left', 'right'" in message
