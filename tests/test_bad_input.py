@@ -179,9 +179,10 @@ SPLIT_DISC_GEO = """\
 SetFactory("OpenCASCADE");
 Disk(1) = {0, 0, 0, 10};
 Rectangle(2) = {0, -10, 0, 10, 20};
+BooleanIntersection(5) = { Surface{2}; Delete; }{ Surface{1}; };
 Disk(3) = {-3, 0, 0, 1};
 Disk(4) = {3, 0, 0, 1};
-BooleanFragments{ Surface{1}; Delete; }{ Surface{2}; Delete; }
+BooleanFragments{ Surface{1}; Delete; }{ Surface{5}; Delete; }
 BooleanDifference{ Surface{:}; Delete; }{ Surface{3, 4}; Delete; }
 e = 1e-6;
 Physical Surface("left") = Surface In BoundingBox{-10 - e, -10 - e, -e, e, 10 + e, e};
