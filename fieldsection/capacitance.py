@@ -15,6 +15,7 @@ import numpy as np
 
 from .charges import ChargeResult
 from .fields import ElementFields
+from .problem import conductor_indicator
 from .solve import Solution
 
 
@@ -83,17 +84,13 @@ def compute_capacitance(solution: Solution, fields: ElementFields, charges: Char
     K = problem.stiffness
     U = solution.unit_potentials
     fixed = problem.fixed
-    lifts = np.zeros_like(U)
-    for i, conductor in enumerate(fixed):
-        lifts[conductor.dofs, i] = 1.0
+    lifts = conductor_indicator(problem, fixed)
     KU = K @ U
     c_charge = copies * (lifts.T @ KU)
     c_energy = copies * (U.T @ KU)
     scale = max(np.abs(c_energy).max(), np.finfo(float).tiny)
     every = problem.conductors
-    indicator = np.zeros((problem.ndofs, len(every)))
-    for i, conductor in enumerate(every):
-        indicator[conductor.dofs, i] = 1.0
+    indicator = conductor_indicator(problem, every)
     reaction = copies * (indicator.T @ (K @ solution.potential))
     flux = copies * np.array([c.charge_from_flux for c in charges.conductors])
     names = tuple(c.name for c in fixed)

@@ -177,9 +177,27 @@ def _script_parameter(name: str, value: Any, length_unit_m: float) -> float:
     """A script parameter: a plain number, or a length converted into the script's unit."""
     if isinstance(value, bool):
         raise CaseFileError(f"geometry.parameters.{name}: a boolean cannot be a gmsh number")
-    if isinstance(value, (int, float)):
-        return float(value)
-    return to_si(value, "length", f"geometry.parameters.{name}") / length_unit_m
+    where = f"geometry.parameters.{name}"
+    if isinstance(value, str):
+        try:
+            value = float(value)  # a quoted plain number is a plain number, not metres
+        except ValueError:
+            return to_si(value, "length", where) / length_unit_m
+    if not isinstance(value, (int, float)) or not math.isfinite(value):
+        raise CaseFileError(f"{where}: {value!r} is not a finite number or a length such as '2 mm'")
+    return float(value)
+
+
+def _whole(value: Any, where: str) -> int:
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise CaseFileError(f"{where} = {value!r}: must be a whole number without quotes, e.g. 2")
+    return value
+
+
+def _flag(value: Any, where: str) -> bool:
+    if not isinstance(value, bool):
+        raise CaseFileError(f"{where} = {value!r}: must be true or false, without quotes")
+    return value
 
 
 def _electrode(name: str, value: Any) -> tuple[str, float]:
@@ -235,8 +253,14 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
     _check_keys(geometry_table, {"script", "length_unit", "parameters"}, f"{where} [geometry]")
     if "script" not in geometry_table:
         raise CaseFileError(f"{where}: [geometry] needs script = \"name.geo\"")
-    length_unit_m = to_si(f"1 {geometry_table.get('length_unit', 'm')}", "length", "geometry.length_unit")
+    unit_name = geometry_table.get("length_unit", "m")
+    length_unit_m = to_si(f"1 {unit_name}", "length", "geometry.length_unit") if isinstance(unit_name, str) else 0.0
+    if not length_unit_m > 0:
+        raise CaseFileError(f"geometry.length_unit = {unit_name!r}: give the unit of the script's coordinates, "
+                            "e.g. 'mm' or 'm'")
     script = _find_script(str(geometry_table["script"]), path.parent)
+    if script.suffix.lower() != ".geo":
+        raise CaseFileError(f"geometry.script = {script.name!r}: give a gmsh geometry script (.geo)")
     parameters = {
         str(k): _script_parameter(str(k), v, length_unit_m)
         for k, v in _table(geometry_table, "parameters", f"{where} [geometry]").items()
@@ -292,8 +316,8 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
             str(k): to_si(v, "length", f"mesh.region_sizes.{k}")
             for k, v in _table(mesh_table, "region_sizes", f"{where} [mesh]").items()
         },
-        element_order=mesh_table.get("element_order", 2),
-        curved=bool(mesh_table.get("curved", True)),
+        element_order=_whole(mesh_table.get("element_order", 2), "mesh.element_order"),
+        curved=_flag(mesh_table.get("curved", True), "mesh.curved"),
     )
     title = data.get("title", "")
     return Case(
@@ -308,7 +332,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         source_file=path.resolve(),
         floating=floating,
         insulated_curves=frozenset(insulated),
-        symmetry_copies=symmetry.get("copies", 1),
+        symmetry_copies=_whole(symmetry.get("copies", 1), "symmetry.copies"),
     )
 
 

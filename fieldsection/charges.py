@@ -32,7 +32,6 @@ class FacetSides:
     local_vertices: np.ndarray  # (n, 2) local indices 0..2
     lengths: np.ndarray
     outward_normals: np.ndarray  # (n, 2), out of the element
-    midpoints: np.ndarray  # (n, 2)
 
 
 def facet_sides(problem: AssembledProblem, facets: np.ndarray, elements: np.ndarray) -> FacetSides:
@@ -48,7 +47,7 @@ def facet_sides(problem: AssembledProblem, facets: np.ndarray, elements: np.ndar
     centroid = mesh.p[:, verts.T].mean(axis=1).T
     flip = np.einsum("ij,ij->i", normals, midpoints - centroid) < 0
     normals[flip] *= -1
-    return FacetSides(facets, elements, local, lengths, normals, midpoints)
+    return FacetSides(facets, elements, local, lengths, normals)
 
 
 def normal_component(sides: FacetSides, vertex_field: np.ndarray) -> np.ndarray:

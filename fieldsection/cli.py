@@ -11,7 +11,7 @@ import sys
 from pathlib import Path
 
 from . import __version__
-from .errors import FieldSectionError
+from .errors import FieldSectionError, ReportError
 
 EXIT_OK, EXIT_FAILURE, EXIT_BAD_INPUT = 0, 1, 2
 
@@ -42,7 +42,7 @@ def _run(args: argparse.Namespace) -> int:
     from .report import write_report
 
     case = load_case(args.case, trust_script=args.trust_script)
-    total = len(STAGES) + 7  # computing stages, five figures, the VTU file
+    total = len(STAGES) + 6  # computing stages, five figures, the VTU file
     with tqdm(total=total, disable=args.quiet, unit="stage", desc=case.name, file=sys.stderr) as bar:
         def step(name: str) -> None:  # called as each stage starts
             bar.set_postfix_str(name)
@@ -92,6 +92,9 @@ def main(argv: list[str] | None = None) -> int:
         if args.verb == "run":
             return _run(args)
         return _materials()
+    except ReportError as exc:  # not the input's fault: a disk or permission problem
+        print(f"fieldsection: error: {exc}", file=sys.stderr)
+        return EXIT_FAILURE
     except FieldSectionError as exc:
         print(f"fieldsection: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT

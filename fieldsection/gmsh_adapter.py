@@ -24,6 +24,11 @@ from .case import BuilderGeometry, MeshSettings, ScriptGeometry
 from .errors import GeometryError, MeshError
 from .geometry import screen_script
 
+#: seconds one meshing may take before it is stopped (a mistyped size can ask for billions of elements)
+MESHING_TIME_LIMIT = 3600.0
+#: smallest mesh size accepted, as a share of the geometry's extent
+SMALLEST_RELATIVE_SIZE = 1e-7
+
 # gmsh element type codes (see gmsh's documentation, "MSH file format")
 _LINE2, _LINE3, _TRI3, _TRI6 = 1, 8, 2, 9
 
@@ -103,12 +108,17 @@ def _isolated(work, *args):
     child.start()
     sender.close()
     try:
+        if not receiver.poll(MESHING_TIME_LIMIT):
+            child.kill()
+            raise MeshError(f"meshing took longer than {MESHING_TIME_LIMIT:.0f} s and was stopped; coarsen the mesh "
+                            "sizes (case [mesh] or the script's own size settings)")
         status, payload = receiver.recv()
     except EOFError:
         child.join()
+        killed = child.exitcode is not None and child.exitcode < 0
         raise MeshError(
-            f"gmsh stopped unexpectedly (exit code {child.exitcode}) while meshing; simplify the geometry or "
-            "coarsen the mesh, and check the script in gmsh's own window"
+            f"gmsh stopped unexpectedly (exit code {child.exitcode}{', killed: probably out of memory' if killed else ''})"
+            " while meshing; coarsen the mesh sizes, simplify the geometry, or check the script in gmsh's own window"
         ) from None
     finally:
         receiver.close()
@@ -182,6 +192,7 @@ def _disc_here(boundary: np.ndarray, centre: np.ndarray, closed: bool) -> tuple[
         _quiet(gmsh)
         gmsh.model.add("exterior")
         geo = gmsh.model.geo
+        # gmsh's API adds points and curves one at a time: these loops run over the rim only
         tags = [geo.addPoint(x, y, 0.0, float(h)) for (x, y), h in zip(boundary, local)]
         middle = geo.addPoint(float(centre[0]), float(centre[1]), 0.0, max(radius / 4, float(local.max())))
         arc = [geo.addLine(tags[k], tags[k + 1]) for k in range(n - 1)]
@@ -199,14 +210,20 @@ def _disc_here(boundary: np.ndarray, centre: np.ndarray, closed: bool) -> tuple[
             raise MeshError(f"gmsh could not mesh the open-space disc: {exc}") from None
         node_tags, coords, _ = gmsh.model.mesh.getNodes()
         node_tags = node_tags.astype(np.int64)
+        coords = coords.reshape(-1, 3)[:, :2]
         index_of = np.full(node_tags.max() + 1, -1, dtype=np.int64)
         # boundary points first, then the centre, then the interior nodes in gmsh's order
-        fixed = np.array([int(gmsh.model.mesh.getNodes(0, t)[0][0]) for t in tags + [middle]])
+        from scipy.spatial import cKDTree
+
+        gap, nearest = cKDTree(coords).query(np.vstack([boundary, centre]))
+        if gap.max() > 1e-9 * radius:
+            raise MeshError("gmsh moved a node of the open-space circle; report this as a bug")
+        fixed = node_tags[nearest]
         rest = np.setdiff1d(node_tags, fixed)
         index_of[fixed] = np.arange(fixed.size)
         index_of[rest] = fixed.size + np.arange(rest.size)
         points = np.zeros((node_tags.size, 2))
-        points[index_of[node_tags]] = coords.reshape(-1, 3)[:, :2]
+        points[index_of[node_tags]] = coords
         points[:n] = boundary  # exact, not gmsh's rounding
         _, element_nodes = gmsh.model.mesh.getElementsByType(_TRI3, surface)
         triangles = index_of[element_nodes.astype(np.int64)].reshape(-1, 3)
@@ -246,13 +263,22 @@ def _physical_groups(gmsh, dim: int) -> dict[str, list[int]]:
 
 def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, curves: dict, electrodes) -> None:
     """Translate the case's mesh sizes (metres) into gmsh options and size fields."""
+    xmin, ymin, _, xmax, ymax, _ = gmsh.model.getBoundingBox(-1, -1)
+    extent = max(xmax - xmin, ymax - ymin) * scale
+    sizes = {"mesh.size": settings.size, "mesh.near_electrodes": settings.near_electrodes,
+             **{f"mesh.region_sizes.{k}": v for k, v in settings.region_sizes.items()}}
+    for label, size in sizes.items():
+        if size is not None and size < SMALLEST_RELATIVE_SIZE * extent:
+            raise MeshError(f"{label} = {size * 1e3:.3g} mm is below {SMALLEST_RELATIVE_SIZE:g} of the geometry's "
+                            f"extent ({extent * 1e3:.4g} mm); check the unit")
     if settings.size is not None:
         gmsh.option.setNumber("Mesh.MeshSizeMax", settings.size / scale)
     fields: list[int] = []
     for region, size in settings.region_sizes.items():
         if region not in surfaces:
+            hint = " (it is a curve: use mesh.near_electrodes for electrode surfaces)" if region in curves else ""
             raise GeometryError(
-                f"mesh.region_sizes names {region!r}, which is not a physical surface of the geometry; "
+                f"mesh.region_sizes names {region!r}, which is not a physical surface of the geometry{hint}; "
                 f"known surfaces: {', '.join(sorted(surfaces)) or 'none'}"
             )
         fid = gmsh.model.mesh.field.add("Constant")
@@ -317,8 +343,11 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
     if coords.size == 0:
         raise MeshError("gmsh produced no nodes; check the mesh sizes")
     extent = np.ptp(coords[:, :2], axis=0).max()
-    if np.abs(coords[:, 2]).max() > 1e-9 * max(extent, 1.0):
-        raise GeometryError("the geometry is not in the z = 0 plane; draw the cross-section in x-y")
+    off_plane = np.abs(coords[:, 2])
+    if off_plane.max() > 1e-9 * max(extent, 1.0):
+        x, y, z = coords[np.argmax(off_plane)]
+        raise GeometryError(f"the geometry is not in the z = 0 plane (a node at ({x:.4g}, {y:.4g}, {z:.4g}) in script "
+                            "units); draw the cross-section in x-y")
     index_of = np.full(node_tags.max() + 1, -1, dtype=np.int64)
     index_of[node_tags] = np.arange(node_tags.size)
 

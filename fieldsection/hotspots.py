@@ -12,7 +12,6 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
-from scipy.spatial import cKDTree
 
 from .fields import ElementFields
 from .problem import AssembledProblem
@@ -88,13 +87,12 @@ def find_hotspots(problem: AssembledProblem, fields: ElementFields, fraction: fl
         _, groups = connected_components(incidence @ incidence.T, directed=False)
         order = np.argsort(groups, kind="stable")
         split = np.flatnonzero(np.diff(groups[order])) + 1
-        trees = [(c.name, cKDTree(mesh.p[:, mesh.facets[:, c.facets].ravel()].T))
-                 for c in problem.conductors if c.facets.size]
-        areas = _areas(mesh)
+        surfaces = [(c.name, mesh.p[:, mesh.facets[:, c.facets]]) for c in problem.conductors if c.facets.size]
+        areas = section.element_areas
         for members in np.split(flagged_idx[order], split):
             k = members[np.argmax(utilisation[members])]
             where = mesh.p[:, peak_vertex[k]]
-            nearest, distance = min(((name, float(tree.query(where)[0])) for name, tree in trees),
+            nearest, distance = min(((name, _distance_to_segments(where, ends)) for name, ends in surfaces),
                                     key=lambda item: item[1], default=("none", float("nan")))
             material = problem.material_of_region[names[region[k]]]
             hotspots.append(Hotspot(names[region[k]], material.name, float(peak[k]), (float(where[0]), float(where[1])),
@@ -104,8 +102,9 @@ def find_hotspots(problem: AssembledProblem, fields: ElementFields, fraction: fl
     return HotspotResult(fraction, tuple(peaks), tuple(hotspots), utilisation)
 
 
-def _areas(mesh) -> np.ndarray:
-    p, t = mesh.p, mesh.t
-    d1 = p[:, t[1]] - p[:, t[0]]
-    d2 = p[:, t[2]] - p[:, t[0]]
-    return 0.5 * np.abs(d1[0] * d2[1] - d1[1] * d2[0])
+def _distance_to_segments(point: np.ndarray, ends: np.ndarray) -> float:
+    """Shortest distance from ``point`` (2,) to segments ``ends`` (2 coordinates, 2 ends, n)."""
+    start, step = ends[:, 0], ends[:, 1] - ends[:, 0]
+    along = np.clip(((point[:, None] - start) * step).sum(axis=0) / np.maximum((step**2).sum(axis=0), 1e-300), 0, 1)
+    closest = start + step * along
+    return float(np.hypot(*(closest - point[:, None])).min())

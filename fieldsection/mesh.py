@@ -50,9 +50,10 @@ class SectionMesh:
     def elements_of(self, region: str) -> np.ndarray:
         return np.flatnonzero(self.region_of_element == self.region_names.index(region))
 
-    def facet_neighbours(self) -> np.ndarray:
-        """``f2t`` of the mesh: the (up to) two elements beside each facet, -1 on the boundary."""
-        return self.mesh.f2t
+    @property
+    def element_areas(self) -> np.ndarray:
+        """Area of each element's straight-sided triangle, m^2."""
+        return triangle_areas(self.mesh)
 
 
 def _facet_keys(pairs: np.ndarray, n_vertices: int) -> np.ndarray:
@@ -257,24 +258,32 @@ def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> S
     return SectionMesh(mesh, names, region_of_element, curve_facets, raw.warnings, open_circle)
 
 
-def _check_quality(mesh: MeshTri1 | MeshTri2) -> None:
-    """Reject degenerate or inverted elements (scikit-fem validates only at DEBUG level)."""
+def triangle_areas(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
+    """Area of each element's straight-sided (corner) triangle, m^2."""
     p, t = mesh.p, mesh.t
     d1 = p[:, t[1]] - p[:, t[0]]
     d2 = p[:, t[2]] - p[:, t[0]]
-    area = 0.5 * np.abs(d1[0] * d2[1] - d1[1] * d2[0])
-    scale = np.maximum(np.hypot(*d1), np.hypot(*d2)) ** 2
-    bad = np.flatnonzero(area <= 1e-12 * scale)
+    return 0.5 * np.abs(d1[0] * d2[1] - d1[1] * d2[0])
+
+
+def _check_quality(mesh: MeshTri1 | MeshTri2) -> None:
+    """Reject degenerate or inverted elements (scikit-fem validates only at DEBUG level)."""
+    p, t = mesh.p, mesh.t
+    longest = np.max([np.hypot(*(p[:, t[i]] - p[:, t[j]])) for i, j in ((0, 1), (1, 2), (2, 0))], axis=0)
+    bad = np.flatnonzero(triangle_areas(mesh) <= 1e-12 * longest**2)
     if bad.size:
         x, y = p[:, t[:, bad[0]]].mean(axis=1)
-        raise MeshError(f"{bad.size} degenerate triangle(s), first near ({x:.4g}, {y:.4g}) m; check for "
-                        "duplicate points or touching curves in the geometry")
+        raise MeshError(f"{bad.size} degenerate triangle(s), first near ({x * 1e3:.4g}, {y * 1e3:.4g}) mm; check "
+                        "for duplicate points or touching curves in the geometry")
     if isinstance(mesh, MeshTri2):
-        from skfem import Basis, ElementTriP0
-
-        det = Basis(mesh, ElementTriP0(), intorder=4).dx  # |J| * weights; must be positive
-        if not np.all(np.isfinite(det)) or (det <= 0).any():
-            raise MeshError("a curved element is inverted (mid-edge node too far off the chord); refine near arcs")
+        # the Jacobian of a valid curved element keeps one sign (either, as vertex order is sorted)
+        points = np.array([[0.0, 1.0, 0.0, 0.5, 0.0, 0.5, 1 / 3], [0.0, 0.0, 1.0, 0.0, 0.5, 0.5, 1 / 3]])
+        det = mesh.mapping().detDF(points)
+        folded = np.flatnonzero(~np.isfinite(det).all(axis=1) | (det.min(axis=1) * det.max(axis=1) <= 0))
+        if folded.size:
+            x, y = p[:, t[:, folded[0]]].mean(axis=1)
+            raise MeshError(f"{folded.size} curved element(s) fold over, first near ({x * 1e3:.4g}, {y * 1e3:.4g}) "
+                            "mm (a mid-edge node too far off its chord); refine the mesh near that arc")
 
 
 def _check_conforming(mesh: MeshTri1, names: tuple[str, ...], region_of_element: np.ndarray,

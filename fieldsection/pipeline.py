@@ -51,7 +51,7 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
     circle = None
     if case.outer_boundary == "open":
         circle = find_open_circle(raw, case.conductor_names | case.insulated_curves)
-        raw = stage("open space", lambda: add_open_space(raw, circle))
+    raw = stage("open space", lambda: raw if circle is None else add_open_space(raw, circle))
     section = stage("convert mesh", lambda: build_section_mesh(raw, circle))
     problem = stage("assemble", lambda: assemble(case, section))
     solution = stage("solve", lambda: solve(problem))
@@ -62,4 +62,4 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
     return SectionResult(case, section, problem, solution, fields, charges, capacitance, hotspots, seconds)
 
 
-STAGES = ("mesh", "convert mesh", "assemble", "solve", "fields", "charges", "capacitance", "hotspots")
+STAGES = ("mesh", "open space", "convert mesh", "assemble", "solve", "fields", "charges", "capacitance", "hotspots")

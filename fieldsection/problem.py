@@ -16,7 +16,7 @@ from scipy.constants import epsilon_0
 from skfem import Basis, ElementTriP1, ElementTriP2
 
 from .case import Case
-from .errors import CaseFileError, MeshError
+from .errors import CaseFileError
 from .forms import permittivity_laplace
 from .materials import Material
 from .mesh import EXTERIOR, SectionMesh
@@ -29,7 +29,8 @@ _ELEMENTS = {1: ElementTriP1, 2: ElementTriP2}
 class Conductor:
     """A set of DOFs at one potential, and the facets where it meets the dielectric.
 
-    ``facet_dielectric_element[k]`` is the dielectric element beside ``facets[k]``. A floating
+    ``facet_dielectric_element[k]`` is the dielectric element beside ``facets[k]``; a strip of zero
+    thickness (a curve with dielectric on both sides) lists each facet twice, once per face. A floating
     conductor's potential is an unknown of the solve (``potential`` is NaN here) and ``charge``
     is its given net charge; otherwise ``potential`` is imposed.
     """
@@ -109,20 +110,20 @@ def _check_names(case: Case, section: SectionMesh) -> None:
         )
 
 
-def _dielectric_side(section: SectionMesh, facets: np.ndarray, dielectric: np.ndarray, what: str) -> np.ndarray:
-    """The dielectric element beside each facet; raise where there is none."""
+def _dielectric_faces(section: SectionMesh, facets: np.ndarray, dielectric: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(facet, dielectric element) pairs along a conductor's facets.
+
+    A facet with dielectric on both sides belongs to a conductor of zero thickness (a strip or foil
+    drawn as a curve inside the insulation): both of its faces are listed.
+    """
     f2t = section.mesh.f2t[:, facets]
-    first = np.where((f2t[0] >= 0) & dielectric[np.maximum(f2t[0], 0)], f2t[0], -1)
-    second = np.where((f2t[1] >= 0) & dielectric[np.maximum(f2t[1], 0)], f2t[1], -1)
-    both = (first >= 0) & (second >= 0)
-    if both.any():
-        x, y = section.mesh.p[:, section.mesh.facets[:, facets[both][0]]].mean(axis=1)
-        raise MeshError(
-            f"{what} runs through a dielectric near ({x * 1e3:.4g}, {y * 1e3:.4g}) mm; an electrode curve must "
-            "bound a hole or a conductor region, not split a dielectric"
-        )
-    side = np.maximum(first, second)
-    return side
+    pairs_f, pairs_e = [], []
+    for side in (0, 1):
+        element = f2t[side]
+        ok = (element >= 0) & dielectric[np.maximum(element, 0)]
+        pairs_f.append(facets[ok])
+        pairs_e.append(element[ok])
+    return np.concatenate(pairs_f), np.concatenate(pairs_e)
 
 
 def _medium_beyond(case: Case, section: SectionMesh) -> float:
@@ -186,15 +187,16 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
             facets = section.curve_facets[name]
             dofs = basis.get_dofs(facets=facets).all()
             is_region = False
-        side = _dielectric_side(section, facets, dielectric, f"electrode {name!r}") if facets.size else facets
-        keep = side >= 0
-        if floating and not keep.any():
+        faces, beside = _dielectric_faces(section, facets, dielectric)
+        if floating and not faces.size:
             raise CaseFileError(
                 f"floating electrode {name!r} touches no dielectric, so its potential is undefined; surround it "
                 "with insulation in the geometry"
             )
-        conductors.append(Conductor(name, np.nan if floating else value, np.unique(dofs), facets[keep], side[keep],
-                                    is_region, floating, value if floating else 0.0))
+        # a floating conductor's charge is given for the full section: the model carries its share
+        share = value / case.symmetry_copies if floating else 0.0
+        conductors.append(Conductor(name, np.nan if floating else value, np.unique(dofs), faces, beside,
+                                    is_region, floating, share))
 
     if case.outer_boundary == "grounded":
         claimed = [section.curve_facets[c.name] for c in conductors if not c.is_region]
@@ -203,17 +205,58 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
         outer = outer[dielectric[mesh.f2t[0, outer]]]
         if outer.size:
             dofs = basis.get_dofs(facets=outer).all()
-            for other in conductors:  # nodes shared with a named 0 V electrode belong to it
-                if other.potential == 0.0:
-                    dofs = np.setdiff1d(dofs, other.dofs)
             conductors.append(Conductor(OUTER_BOUNDARY, 0.0, np.unique(dofs), outer, mesh.f2t[0, outer]))
 
+    _check_holes(case, section)
     _check_touching(conductors, basis)
     taken = np.concatenate([c.dofs for c in conductors])
     free = np.setdiff1d(np.arange(basis.N), taken)
     material_of_region = dict(case.regions)
     return AssembledProblem(section, basis, stiffness, er, material_of_region, dielectric, tuple(conductors),
                             free, case.outer_boundary, case.symmetry_copies)
+
+
+def conductor_indicator(problem: "AssembledProblem", conductors: tuple[Conductor, ...]) -> np.ndarray:
+    """(ndofs, len(conductors)) array: 1 where a DOF belongs to the conductor, else 0."""
+    indicator = np.zeros((problem.ndofs, len(conductors)))
+    for i, conductor in enumerate(conductors):
+        indicator[conductor.dofs, i] = 1.0
+    return indicator
+
+
+def _check_holes(case: Case, section: SectionMesh) -> None:
+    """Every boundary loop inside the section (the rim of a hole) must be an electrode or insulated.
+
+    A forgotten conductor would otherwise be grounded with the outer boundary, or act as an
+    uncharged void: a plausible-looking but wrong field.
+    """
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    mesh = section.mesh
+    drawn = ~section.exterior
+    a, b = mesh.f2t
+    rim = drawn[a] & ((b < 0) | ~drawn[np.maximum(b, 0)])
+    rim |= (b >= 0) & drawn[np.maximum(b, 0)] & ~drawn[a]
+    facets = np.flatnonzero(rim)
+    ends = mesh.facets[:, facets]
+    n = mesh.nvertices
+    _, loop_of_vertex = connected_components(coo_matrix((np.ones(facets.size), (ends[0], ends[1])), shape=(n, n)),
+                                             directed=False)
+    loop = loop_of_vertex[ends[0]]
+    outermost = loop[np.argmax(mesh.p[0, ends[0]])]
+    claimed = np.zeros(mesh.nfacets, dtype=bool)
+    for name in case.conductor_names | case.insulated_curves:
+        if name in section.curve_facets:
+            claimed[section.curve_facets[name]] = True
+    open_rim = facets[(loop != outermost) & ~claimed[facets]]
+    if open_rim.size:
+        x, y = mesh.p[:, mesh.facets[:, open_rim[0]]].mean(axis=1)
+        raise CaseFileError(
+            f"the rim of a hole near ({x * 1e3:.4g}, {y * 1e3:.4g}) mm is neither an electrode nor insulated; if it "
+            "is a conductor, list its physical curve under [electrodes]; if it is an empty, uncharged cavity, list "
+            "it under [boundary.curves] as \"insulated\"; if two surfaces were meant to touch, fragment them"
+        )
 
 
 def _check_touching(conductors: list[Conductor], basis: Basis) -> None:
@@ -223,8 +266,15 @@ def _check_touching(conductors: list[Conductor], basis: Basis) -> None:
         if shared.size:
             other = conductors[owner[shared[0]]]
             x, y = basis.doflocs[:, shared[0]]
+            where = f"({x * 1e3:.4g}, {y * 1e3:.4g}) mm"
+            if OUTER_BOUNDARY in (other.name, conductor.name):
+                named = other.name if conductor.name == OUTER_BOUNDARY else conductor.name
+                raise CaseFileError(
+                    f"electrode {named!r} touches the grounded outer boundary at {where}; move it off the boundary, "
+                    "or name the boundary curves as electrodes of their own and set outer = \"insulated\""
+                )
             raise CaseFileError(
-                f"electrodes {other.name!r} and {conductor.name!r} touch at ({x * 1e3:.4g}, {y * 1e3:.4g}) mm; "
+                f"electrodes {other.name!r} and {conductor.name!r} touch at {where}; "
                 "separate them with insulation in the geometry, or merge them into one electrode"
             )
         owner[conductor.dofs] = index

@@ -83,6 +83,9 @@ def write_report(
         (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default), encoding="utf-8")
         (staging / "report.html").write_text(_render_html(results, figure_list), encoding="utf-8")
         _replace_folder(staging, target)
+    except OSError as exc:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise ReportError(f"cannot write the report into {str(target)!r}: {exc}; no report was written") from exc
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise

@@ -15,9 +15,10 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
+from scipy.sparse.csgraph import connected_components
 
-from .errors import SolverError
-from .problem import AssembledProblem
+from .errors import CaseFileError, SolverError
+from .problem import AssembledProblem, conductor_indicator
 
 log = logging.getLogger(__name__)
 
@@ -54,12 +55,39 @@ class FactorisedSystem:
         self._K_T = (problem.stiffness @ self._T).tocsr()
         reduced = (self._T.T @ self._K_T).tocsc()
         self._n = reduced.shape[0]
+        self._check_determined(reduced, n_free)
         try:
             # K is symmetric positive definite: symmetric ordering, no pivoting (10x faster than defaults)
             self._lu = spla.splu(reduced, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
                                  options={"SymmetricMode": True})
         except RuntimeError as exc:
             raise SolverError(f"the system is singular ({exc}); {_SINGULAR_HINT}") from None
+
+    def _check_determined(self, reduced: sp.csc_matrix, n_free: int) -> None:
+        """Each connected part of the unknowns must couple to a fixed potential, or its potential is undefined.
+
+        (Without pivoting the factorisation would not notice, and return a meaningless potential.)
+        """
+        problem = self.problem
+        fixed = conductor_indicator(problem, problem.fixed).sum(axis=1)
+        coupled = (self._T.T @ (abs(problem.stiffness) @ fixed)) > 0
+        _, part = connected_components(reduced, directed=False)
+        anchored = np.zeros(part.max() + 1, dtype=bool)
+        anchored[part[coupled]] = True
+        loose = np.flatnonzero(~anchored[part])
+        if loose.size:
+            first = loose[0]
+            if first >= n_free:
+                name = problem.floating[first - n_free].name
+                raise SolverError(f"floating electrode {name!r} and the insulation around it touch no electrode with "
+                                  "a fixed potential, so their potential is undefined; connect that insulation to "
+                                  "the rest of the section, or ground the outer boundary")
+            x, y = problem.basis.doflocs[:, problem.free_dofs[first]]
+            raise SolverError(
+                f"the insulation near ({x * 1e3:.4g}, {y * 1e3:.4g}) mm touches no electrode with a fixed potential and "
+                "only insulated boundaries, so its potential is undefined; connect it to an electrode, fragment it "
+                "with its neighbours, or ground the outer boundary"
+            )
 
     def __repr__(self) -> str:
         return f"<FactorisedSystem {self._n} unknowns, LU nnz {self._lu.L.nnz + self._lu.U.nnz}>"
@@ -82,12 +110,17 @@ _SINGULAR_HINT = (
 
 def solve(problem: AssembledProblem) -> Solution:
     """Unit solutions for every conductor, and the case's potential as their superposition."""
-    system = FactorisedSystem(problem)
     fixed, floating = problem.fixed, problem.floating
+    if len({c.potential for c in fixed}) < 2 and not any(c.charge for c in floating):
+        level = fixed[0].potential if fixed else 0.0
+        raise CaseFileError(
+            f"every electrode is at {level:g} V and no floating conductor carries charge: there is no field to "
+            "compute; give the electrodes different potentials (the outer boundary, if grounded, is at 0 V)"
+        )
+    system = FactorisedSystem(problem)
     n = problem.ndofs
     lifts = np.zeros((n, len(fixed) + len(floating)))
-    for i, conductor in enumerate(fixed):
-        lifts[conductor.dofs, i] = 1.0
+    lifts[:, :len(fixed)] = conductor_indicator(problem, fixed)
     charges = np.zeros((len(floating), lifts.shape[1]))
     charges[:, len(fixed):] = np.eye(len(floating))
     both = system.solve(lifts, charges)

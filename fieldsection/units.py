@@ -6,6 +6,7 @@ Parsing is delegated to pint; its registry is built lazily because it costs ~1 s
 
 from __future__ import annotations
 
+import math
 from functools import lru_cache
 from typing import Any
 
@@ -38,12 +39,12 @@ def to_si(value: Any, kind: str, what: str) -> float:
     if isinstance(value, bool):
         raise UnitError(f"{what}: expected a {kind}, got the boolean {value!r}")
     if isinstance(value, (int, float)):
-        return float(value)
+        return _finite(float(value), what)
     if not isinstance(value, str):
         raise UnitError(f"{what}: expected a number or a string like '2 mm', got {value!r}")
     text = value.strip()
     try:
-        return float(text)
+        return _finite(float(text), what)
     except ValueError:
         pass
     import pint
@@ -60,9 +61,10 @@ def to_si(value: Any, kind: str, what: str) -> float:
         raise UnitError(
             f"{what}: {value!r} is not a {kind}; give it in {target or 'no unit'} or a multiple of it"
         ) from None
-    return float(converted.magnitude)
+    return _finite(float(converted.magnitude), what)
 
 
-def convert_length(value_m: float, unit: str) -> float:
-    """Express a length given in metres in ``unit`` (e.g. 'mm')."""
-    return value_m / to_si(f"1 {unit}", "length", "length unit")
+def _finite(number: float, what: str) -> float:
+    if not math.isfinite(number):
+        raise UnitError(f"{what}: {number!r} is not a finite number")
+    return number

@@ -81,7 +81,9 @@ def test_failed_report_leaves_the_previous_one_untouched(tmp_path, monkeypatch):
         raise OSError("disk full")
 
     monkeypatch.setattr("fieldsection.vtk_export.write_vtu", broken)
-    with pytest.raises(OSError, match="disk full"):
+    from fieldsection.errors import ReportError
+
+    with pytest.raises(ReportError, match="disk full.*no report was written"):
         report_module.write_report(result, tmp_path, with_figures=False)
     assert (folder / "results.json").read_text() == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["busbar_laminated"]
