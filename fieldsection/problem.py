@@ -7,7 +7,7 @@ outer boundary is grounded or carries zero normal D, as the case says.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Mapping
 
 import numpy as np
@@ -43,6 +43,7 @@ class Conductor:
     is_region: bool = False
     floating: bool = False
     charge: float = 0.0
+    joins_outer_boundary: bool = False  # a 0 V electrode that the grounded outer boundary touches
 
 
 @dataclass(frozen=True)
@@ -59,6 +60,7 @@ class AssembledProblem:
     free_dofs: np.ndarray
     outer_boundary: str
     symmetry_copies: int = 1
+    notes: tuple[str, ...] = ()  # decisions taken on the user's behalf, for the report
 
     @property
     def fixed(self) -> tuple[Conductor, ...]:
@@ -198,14 +200,26 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
         conductors.append(Conductor(name, np.nan if floating else value, np.unique(dofs), faces, beside,
                                     is_region, floating, share))
 
+    notes: list[str] = []
     if case.outer_boundary == "grounded":
         claimed = [section.curve_facets[c.name] for c in conductors if not c.is_region]
         claimed += [section.curve_facets[name] for name in case.insulated_curves]
         outer = np.setdiff1d(mesh.boundary_facets(), np.concatenate(claimed) if claimed else [])
         outer = outer[dielectric[mesh.f2t[0, outer]]]
         if outer.size:
-            dofs = basis.get_dofs(facets=outer).all()
-            conductors.append(Conductor(OUTER_BOUNDARY, 0.0, np.unique(dofs), outer, mesh.f2t[0, outer]))
+            dofs = np.unique(basis.get_dofs(facets=outer).all())
+            ground = next((k for k, c in enumerate(conductors)
+                           if c.potential == 0.0 and np.isin(c.dofs, dofs).any()), None)
+            if ground is None:
+                conductors.append(Conductor(OUTER_BOUNDARY, 0.0, dofs, outer, mesh.f2t[0, outer]))
+            else:  # a 0 V electrode joined to the grounded boundary (e.g. a ground plane and its enclosure): one conductor
+                joined = conductors[ground]
+                conductors[ground] = replace(
+                    joined, dofs=np.union1d(joined.dofs, dofs), facets=np.concatenate([joined.facets, outer]),
+                    facet_dielectric_element=np.concatenate([joined.facet_dielectric_element, mesh.f2t[0, outer]]),
+                    joins_outer_boundary=True)
+                notes.append(f"the grounded outer boundary touches electrode {joined.name!r} (0 V) and is counted "
+                             "as part of it")
 
     _check_holes(case, section)
     _check_touching(conductors, basis)
@@ -213,7 +227,7 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
     free = np.setdiff1d(np.arange(basis.N), taken)
     material_of_region = dict(case.regions)
     return AssembledProblem(section, basis, stiffness, er, material_of_region, dielectric, tuple(conductors),
-                            free, case.outer_boundary, case.symmetry_copies)
+                            free, case.outer_boundary, case.symmetry_copies, tuple(notes))
 
 
 def conductor_indicator(problem: "AssembledProblem", conductors: tuple[Conductor, ...]) -> np.ndarray:
@@ -244,12 +258,19 @@ def _check_holes(case: Case, section: SectionMesh) -> None:
     _, loop_of_vertex = connected_components(coo_matrix((np.ones(facets.size), (ends[0], ends[1])), shape=(n, n)),
                                              directed=False)
     loop = loop_of_vertex[ends[0]]
-    outermost = loop[np.argmax(mesh.p[0, ends[0]])]
+    # each connected piece of the section has one outermost loop: the one through its right-most vertex
+    edges = mesh.facets[:, mesh.f2t[0] >= 0]
+    _, piece_of_vertex = connected_components(
+        coo_matrix((np.ones(edges.shape[1]), (edges[0], edges[1])), shape=(n, n)), directed=False)
+    piece = piece_of_vertex[ends[0]]
+    order = np.lexsort((mesh.p[0, ends[0]], piece))
+    last_of_piece = order[np.r_[np.flatnonzero(np.diff(piece[order])), order.size - 1]]
+    outer_loops = loop[last_of_piece]
     claimed = np.zeros(mesh.nfacets, dtype=bool)
     for name in case.conductor_names | case.insulated_curves:
         if name in section.curve_facets:
             claimed[section.curve_facets[name]] = True
-    open_rim = facets[(loop != outermost) & ~claimed[facets]]
+    open_rim = facets[~np.isin(loop, outer_loops) & ~claimed[facets]]
     if open_rim.size:
         x, y = mesh.p[:, mesh.facets[:, open_rim[0]]].mean(axis=1)
         raise CaseFileError(
@@ -267,8 +288,9 @@ def _check_touching(conductors: list[Conductor], basis: Basis) -> None:
             other = conductors[owner[shared[0]]]
             x, y = basis.doflocs[:, shared[0]]
             where = f"({x * 1e3:.4g}, {y * 1e3:.4g}) mm"
-            if OUTER_BOUNDARY in (other.name, conductor.name):
-                named = other.name if conductor.name == OUTER_BOUNDARY else conductor.name
+            outer = [c for c in (other, conductor) if c.name == OUTER_BOUNDARY or c.joins_outer_boundary]
+            if outer:
+                named = (conductor if outer[0] is other else other).name
                 raise CaseFileError(
                     f"electrode {named!r} touches the grounded outer boundary at {where}; move it off the boundary, "
                     "or name the boundary curves as electrodes of their own and set outer = \"insulated\""

@@ -176,6 +176,7 @@ def build_results(result: SectionResult) -> dict[str, Any]:
         ],
         "solver": {"method": "sparse LU (SuperLU), one factorisation for all conductors",
                    "relative_residual": result.solution.relative_residual},
+        "notes": list(problem.notes),
         "stage_seconds": result.stage_seconds,
         "cautions": list(CAUTIONS),
     }

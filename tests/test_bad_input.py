@@ -208,3 +208,67 @@ def test_open_space_circle_through_two_materials(tmp_path, capsys):
         """, geo=SPLIT_DISC_GEO)
     message = run_expecting_error(tmp_path, capsys, case)
     assert "open-space circle cuts through regions 'left', 'right'" in message
+
+
+def test_forgotten_conductor_is_refused(tmp_path, capsys):
+    # a hole whose rim is in no group: it would be silently grounded or act as a void
+    geo = PLATES_GEO.replace("Curve Loop(1) = {1, 2, 3, 4};\nPlane Surface(1) = {1};",
+                             "Curve Loop(1) = {1, 2, 3, 4};\n"
+                             "Point(5) = {5, 0.5, 0, 0.1}; Point(6) = {5.2, 0.5, 0, 0.1}; Point(7) = {4.8, 0.5, 0, 0.1};\n"
+                             "Circle(5) = {6, 5, 7}; Circle(6) = {7, 5, 6};\n"
+                             "Curve Loop(2) = {5, 6};\nPlane Surface(1) = {1, 2};")
+    message = run_expecting_error(tmp_path, capsys, write_case(tmp_path, geo=geo))
+    assert re.search(r"the rim of a hole near \(5\.[12]\d*, 0\.[45]\d*\) mm is neither an electrode nor insulated", message)
+
+
+def test_same_potential_everywhere_is_refused(tmp_path, capsys):
+    case = write_case(tmp_path, PLATES_CASE.replace('top = "1 kV"', 'top = "0 V"'))
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert "every electrode is at 0 V" in message and "no field" in message
+
+
+def test_insulation_touching_no_electrode_is_refused(tmp_path, capsys):
+    # a second slab beside the plates, joined to nothing: its potential would be undefined
+    geo = PLATES_GEO + ("Point(5) = {12, 0, 0, 0.5}; Point(6) = {14, 0, 0, 0.5}; Point(7) = {14, 1, 0, 0.5};\n"
+                        "Line(5) = {5, 6}; Line(6) = {6, 7}; Line(7) = {7, 5};\n"
+                        "Curve Loop(2) = {5, 6, 7}; Plane Surface(2) = {2};\n"
+                        'Physical Surface("island") = {2};\n')
+    case = write_case(tmp_path, PLATES_CASE.replace('gap = "PTFE"', 'gap = "PTFE"\nisland = "PTFE"'), geo=geo)
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert "touches no electrode with a fixed potential" in message
+
+
+@pytest.mark.parametrize("line, expected", [
+    ('curved = "false"', r"mesh\.curved = 'false': must be true or false"),
+    ("element_order = true", r"mesh\.element_order = True: must be a whole number"),
+    ("element_order = 2.0", r"mesh\.element_order = 2\.0: must be a whole number"),
+])
+def test_loose_mesh_values(tmp_path, capsys, line, expected):
+    case = write_case(tmp_path, PLATES_CASE + f"\n[mesh]\n{line}\n")
+    assert re.search(expected, run_expecting_error(tmp_path, capsys, case))
+
+
+def test_length_unit_must_be_positive(tmp_path, capsys):
+    case = write_case(tmp_path, PLATES_CASE.replace('length_unit = "mm"', 'length_unit = "0 mm"'))
+    assert "geometry.length_unit = '0 mm'" in run_expecting_error(tmp_path, capsys, case)
+
+
+@pytest.mark.parametrize("command, expected", [
+    ('Include StrCat("pl", "ates2.geo");', "'Include' must name its file literally"),
+    ('Merge "extra.geo";', "'System' runs a shell command"),
+    ('Printf("x %g", 1) > "out.txt";', "'Printf(...) >' writes a file"),
+    ('Save "copy.msh";', "'Save' writes files"),
+    ('CreateDir "somewhere";', "'CreateDir' writes files"),
+])
+def test_script_commands_that_reach_outside_are_refused(tmp_path, capsys, command, expected):
+    (tmp_path / "extra.geo").write_text('System "touch hacked";\n')
+    case = write_case(tmp_path, geo=PLATES_GEO + command + "\n")
+    assert expected in run_expecting_error(tmp_path, capsys, case)
+    assert not (tmp_path / "hacked").exists() and not (tmp_path / "out.txt").exists()
+
+
+def test_electrode_touching_the_grounded_boundary(tmp_path, capsys):
+    case = write_case(tmp_path, PLATES_CASE.replace('outer = "insulated"', 'outer = "grounded"'))
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert "electrode 'top' touches the grounded outer boundary" in message or \
+           "electrode 'bottom' touches the grounded outer boundary" in message

@@ -106,3 +106,14 @@ def test_surfaces_that_touch_without_sharing_nodes_are_refused():
                 {"solid": air, "air_gap": air}, {"top": V, "bottom": 0.0}, outer_boundary="insulated")
     with pytest.raises(FieldSectionError, match="'solid' and 'air_gap' touch near .* without sharing mesh nodes"):
         analyse(case)
+
+
+def test_quoted_plain_number_parameter_is_not_metres(tmp_path):
+    from conftest import GEOMETRIES
+    from fieldsection import load_case
+
+    case = tmp_path / "coax.toml"
+    case.write_text(f'[geometry]\nscript = "{GEOMETRIES / "coaxial.geo"}"\nlength_unit = "mm"\n'
+                    '[geometry.parameters]\nr_outer = "3"\nr_inner = "1 mm"\n'
+                    '[regions]\ninsulation = "PTFE"\n[electrodes]\ninner = "1 kV"\nouter = "0 V"\n')
+    assert load_case(case).geometry.parameters == {"r_outer": 3.0, "r_inner": pytest.approx(1.0)}
