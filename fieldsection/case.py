@@ -37,6 +37,10 @@ OUTER_BOUNDARY_KINDS = {
     "open": "unbounded free space beyond a circle, by inversion of the exterior onto a disc",
 }
 CURVE_KINDS = ("insulated",)
+MODELS = {
+    "planar": "a cross-section of a long object; results per metre of length",
+    "axisymmetric": "a body of revolution about the y axis (x is the radius); results for the whole body",
+}
 ELEMENT_ORDERS = (1, 2)
 DEFAULT_HOTSPOT_FRACTION = 0.5
 
@@ -100,6 +104,7 @@ class Case:
     floating: Mapping[str, float] = field(default_factory=dict)  # name -> net charge, C/m
     insulated_curves: frozenset[str] = frozenset()  # symmetry lines and insulated walls among the curves
     symmetry_copies: int = 1  # the model is 1/copies of the full section
+    model: str = "planar"  # or "axisymmetric": x is the radius r >= 0, y the axis z
 
     def __post_init__(self) -> None:
         if not self.regions:
@@ -130,6 +135,8 @@ class Case:
         for name, charge in self.floating.items():
             if not math.isfinite(charge):
                 raise CaseFileError(f"electrodes.{name}: charge {charge!r} is not finite")
+        if self.model not in MODELS:
+            raise CaseFileError(f"geometry.model = {self.model!r}: use one of {', '.join(map(repr, MODELS))}")
         copies = self.symmetry_copies
         if isinstance(copies, bool) or not isinstance(copies, int) or copies < 1:
             raise CaseFileError(
@@ -212,7 +219,7 @@ def _electrode(name: str, value: Any) -> tuple[str, float]:
             if "potential" in value:
                 raise CaseFileError(f"{where}: a floating conductor takes its potential from the solve; "
                                     "remove 'potential' or 'floating'")
-            return "floating", to_si(value.get("charge", 0.0), "charge", f"{where}.charge")
+            return "floating", value.get("charge", 0.0)  # converted once the model (C/m or C) is known
         if "charge" in value:
             raise CaseFileError(f"{where}: a charge is given only to a floating conductor; add floating = true")
         if "potential" not in value:
@@ -250,7 +257,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
     _check_keys(data, _TOP_KEYS, where)
 
     geometry_table = _table(data, "geometry", where)
-    _check_keys(geometry_table, {"script", "length_unit", "parameters"}, f"{where} [geometry]")
+    _check_keys(geometry_table, {"script", "length_unit", "parameters", "model"}, f"{where} [geometry]")
     if "script" not in geometry_table:
         raise CaseFileError(f"{where}: [geometry] needs script = \"name.geo\"")
     unit_name = geometry_table.get("length_unit", "m")
@@ -283,9 +290,14 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
 
     electrodes: dict[str, float] = {}
     floating: dict[str, float] = {}
+    model = str(geometry_table.get("model", "planar"))
+    charge_kind = "charge" if model == "planar" else "total charge"
     for key, value in _table(data, "electrodes", where).items():
         kind, number = _electrode(str(key), value)
-        (floating if kind == "floating" else electrodes)[str(key)] = number
+        if kind == "floating":
+            floating[str(key)] = to_si(number, charge_kind, f"electrodes.{key}.charge")
+        else:
+            electrodes[str(key)] = number
 
     boundary = _table(data, "boundary", where)
     _check_keys(boundary, {"outer", "curves"}, f"{where} [boundary]")
@@ -333,6 +345,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         floating=floating,
         insulated_curves=frozenset(insulated),
         symmetry_copies=_whole(symmetry.get("copies", 1), "symmetry.copies"),
+        model=model,
     )
 
 

@@ -69,7 +69,8 @@ def element_fields(solution: Solution) -> ElementFields:
 
 def outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.ndarray,
                  chord_normals: np.ndarray, coefficient: np.ndarray) -> np.ndarray:
-    """Integral over an element edge of ``coefficient * E . n_out``, one value per (element, edge).
+    """Integral over an element edge of ``coefficient * E . n_out``, one value per (element, edge);
+    in an axisymmetric model over the surface the edge sweeps about the axis (times 2 pi r).
 
     ``local_vertices`` (n, 2) names the edge by its local vertices, ``chord_normals`` (n, 2) gives the
     outward direction and ``coefficient`` (n,) multiplies E (eps for D, eps - eps0 for P).
@@ -94,5 +95,7 @@ def outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.nd
         normal = np.stack([tangent[1], -tangent[0]])
         sign = np.sign(np.einsum("inq,ni->n", normal, chord_normals[on_edge]))
         e_dot_n = -np.einsum("inq,inq->nq", grad, normal)
+        if problem.axisymmetric:  # the surface of revolution swept by the edge: 2 pi r ds
+            e_dot_n = e_dot_n * 2 * np.pi * basis.mapping.F(points, tind=tind)[0]
         out[on_edge] = coefficient[on_edge] * sign * (e_dot_n @ _GAUSS_W)
     return out

@@ -194,7 +194,7 @@ def _disc_here(boundary: np.ndarray, centre: np.ndarray, closed: bool) -> tuple[
         geo = gmsh.model.geo
         # gmsh's API adds points and curves one at a time: these loops run over the rim only
         tags = [geo.addPoint(x, y, 0.0, float(h)) for (x, y), h in zip(boundary, local)]
-        middle = geo.addPoint(float(centre[0]), float(centre[1]), 0.0, max(radius / 4, float(local.max())))
+        middle = geo.addPoint(float(centre[0]), float(centre[1]), 0.0, float(local.mean()))
         arc = [geo.addLine(tags[k], tags[k + 1]) for k in range(n - 1)]
         lines = arc + ([geo.addLine(tags[-1], tags[0])] if closed else [geo.addLine(tags[-1], middle),
                                                                        geo.addLine(middle, tags[0])])

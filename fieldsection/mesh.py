@@ -87,7 +87,7 @@ class OpenCircle:
     centre: np.ndarray
     radius: float
     loop: np.ndarray
-    end_curves: tuple[str, str] | None = None
+    end_curves: tuple[str | None, str | None] | None = None  # None: the arc ends on the axis of revolution
 
     @property
     def closed(self) -> bool:
@@ -107,11 +107,17 @@ _NOT_A_CIRCLE = (
 )
 
 
-def find_open_circle(raw: RawMesh, closed_curves: frozenset[str]) -> OpenCircle:
-    """The part of the boundary not in ``closed_curves`` (electrodes, insulated curves): a circle or an arc."""
+def find_open_circle(raw: RawMesh, closed_curves: frozenset[str], axisymmetric: bool = False) -> OpenCircle:
+    """The part of the boundary not in ``closed_curves`` (electrodes, insulated curves): a circle or an arc.
+
+    In an axisymmetric model the axis x = 0 is no boundary, and the arc is centred on it.
+    """
     corners = raw.triangles[:, :3]
     edges = _boundary_edges(corners)
     n = len(raw.points)
+    on_axis = np.abs(raw.points[:, 0]) <= 1e-9 * np.ptp(raw.points[:, 0])
+    if axisymmetric:
+        edges = edges[~on_axis[edges].all(axis=1)]
     key = np.array([n, 1])
     named = {c: np.sort(raw.curve_groups[c], axis=1) @ key for c in closed_curves if c in raw.curve_groups}
     if named:
@@ -142,8 +148,11 @@ def find_open_circle(raw: RawMesh, closed_curves: frozenset[str]) -> OpenCircle:
     loop = vertices[np.roll(order, -(int(np.argmax(gaps)) + 1))]
     if not set(loop[[0, -1]]) == set(ends):
         raise MeshError(_NOT_A_CIRCLE)
-    end_curves = []
+    end_curves: list[str | None] = []
     for end in loop[[0, -1]]:
+        if axisymmetric and on_axis[end] and abs(centre[0]) <= 1e-6 * radius:
+            end_curves.append(None)
+            continue
         touching = [name for name in named if (raw.curve_groups[name] == end).any()]
         straight = [name for name in touching if _runs_to_centre(raw, name, end, centre, radius)]
         if not straight:
@@ -184,7 +193,8 @@ def add_open_space(raw: RawMesh, circle: OpenCircle) -> RawMesh:
     if not circle.closed:
         spokes = _spokes(points, triangles[:, :3], circle, n_old)
         for name, spoke in zip(circle.end_curves, spokes):
-            curve_groups[name] = np.concatenate([curve_groups[name], spoke])
+            if name is not None:  # a spoke on the axis of revolution needs no condition
+                curve_groups[name] = np.concatenate([curve_groups[name], spoke])
     rows = np.arange(len(raw.triangles), len(raw.triangles) + len(triangles))
     return RawMesh(points, np.concatenate([raw.triangles, triangles]), {**raw.surface_groups, EXTERIOR: rows},
                    curve_groups, raw.warnings)

@@ -50,7 +50,7 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
     raw = stage("mesh", lambda: mesh_geometry(case.geometry, case.mesh, case.conductor_names))
     circle = None
     if case.outer_boundary == "open":
-        circle = find_open_circle(raw, case.conductor_names | case.insulated_curves)
+        circle = find_open_circle(raw, case.conductor_names | case.insulated_curves, case.model == "axisymmetric")
     raw = stage("open space", lambda: raw if circle is None else add_open_space(raw, circle))
     section = stage("convert mesh", lambda: build_section_mesh(raw, circle))
     problem = stage("assemble", lambda: assemble(case, section))

@@ -22,6 +22,7 @@ from .materials import Material
 from .mesh import EXTERIOR, SectionMesh
 
 OUTER_BOUNDARY = "outer boundary"
+INFINITY = "infinity"  # the far surroundings of an axisymmetric open-space model, at 0 V
 _ELEMENTS = {1: ElementTriP1, 2: ElementTriP2}
 
 
@@ -61,6 +62,7 @@ class AssembledProblem:
     outer_boundary: str
     symmetry_copies: int = 1
     notes: tuple[str, ...] = ()  # decisions taken on the user's behalf, for the report
+    axisymmetric: bool = False  # K, charges and energy are for the whole body of revolution
 
     @property
     def fixed(self) -> tuple[Conductor, ...]:
@@ -148,6 +150,29 @@ def _medium_beyond(case: Case, section: SectionMesh) -> float:
     return materials.pop()
 
 
+def _weighted_permittivity(basis: Basis, section: SectionMesh, er: np.ndarray, axisymmetric: bool) -> np.ndarray:
+    """eps at every quadrature point, F/m, with the weights of the model.
+
+    Planar: eps per element, as ``eps[:, None]`` (a flat array would be read as nodal values).
+    Axisymmetric: times 2 pi r. In the Kelvin image of open space, eps is also multiplied by
+    R^2/rho^2 (rho the distance to the circle's centre): the inversion y = c + R^2 (x - c)/|x - c|^2
+    scales lengths by lambda = R^2/|x - c|^2 = rho^2/R^2, so dV_x = lambda^-3 dV_y and
+    |grad_x u| = lambda |grad_y u|, and the exterior energy becomes the integral of
+    eps (R^2/rho^2) |grad_y u|^2 over the image, exactly (3D, about the axis).
+    """
+    eps = (epsilon_0 * er)[:, None]
+    if not axisymmetric:
+        return eps
+    x = np.asarray(basis.global_coordinates())  # (2, nelements, nqp)
+    weighted = eps * 2 * np.pi * x[0]
+    circle = section.open_circle
+    if circle is not None:
+        exterior = section.exterior
+        rho2 = (x[0, exterior] - circle.centre[0]) ** 2 + (x[1, exterior] - circle.centre[1]) ** 2
+        weighted[exterior] *= circle.radius**2 / rho2
+    return weighted
+
+
 def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
     """Build K and the conductor DOF sets; checks the case against the mesh's names."""
     _check_names(case, section)
@@ -169,8 +194,14 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
         # never screened for hotspots nor drawn, but its fluxes count (they are conformally invariant)
         er[exterior] = _medium_beyond(case, section)
 
-    # eps[:, None] broadcasts over quadrature points (a flat array would be read as nodal values)
-    stiffness = permittivity_laplace.assemble(basis, eps=(epsilon_0 * er)[:, None]).tocsr()
+    axisymmetric = case.model == "axisymmetric"
+    if axisymmetric and mesh.p[0].min() < -1e-9 * np.ptp(mesh.p[0]):
+        k = int(np.argmin(mesh.p[0]))
+        raise CaseFileError(
+            f"a point of the axisymmetric model lies at r < 0: ({mesh.p[0, k] * 1e3:.4g}, {mesh.p[1, k] * 1e3:.4g}) mm; "
+            "x is the radius, so draw the section at x >= 0 with the axis of revolution on x = 0"
+        )
+    stiffness = permittivity_laplace.assemble(basis, eps=_weighted_permittivity(basis, section, er, axisymmetric)).tocsr()
 
     conductors: list[Conductor] = []
     wanted = [(name, v, False) for name, v in case.electrodes.items()] + [(n, q, True) for n, q in case.floating.items()]
@@ -204,6 +235,8 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
     if case.outer_boundary == "grounded":
         claimed = [section.curve_facets[c.name] for c in conductors if not c.is_region]
         claimed += [section.curve_facets[name] for name in case.insulated_curves]
+        if axisymmetric:  # the axis of revolution is no boundary: its facets carry no condition
+            claimed.append(_axis_facets(mesh))
         outer = np.setdiff1d(mesh.boundary_facets(), np.concatenate(claimed) if claimed else [])
         outer = outer[dielectric[mesh.f2t[0, outer]]]
         if outer.size:
@@ -221,13 +254,26 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
                 notes.append(f"the grounded outer boundary touches electrode {joined.name!r} (0 V) and is counted "
                              "as part of it")
 
+    if axisymmetric and section.open_circle is not None:
+        # the Kelvin image's centre is the point at infinity, where the potential is 0 V
+        exterior_vertices = np.unique(mesh.t[:, section.exterior])
+        centre = exterior_vertices[np.argmin(np.hypot(*(mesh.p[:, exterior_vertices].T - section.open_circle.centre).T))]
+        conductors.append(Conductor(INFINITY, 0.0, np.array([centre]), np.zeros(0, dtype=np.int64),
+                                    np.zeros(0, dtype=np.int64)))
     _check_holes(case, section)
     _check_touching(conductors, basis)
     taken = np.concatenate([c.dofs for c in conductors])
     free = np.setdiff1d(np.arange(basis.N), taken)
     material_of_region = dict(case.regions)
     return AssembledProblem(section, basis, stiffness, er, material_of_region, dielectric, tuple(conductors),
-                            free, case.outer_boundary, case.symmetry_copies, tuple(notes))
+                            free, case.outer_boundary, case.symmetry_copies, tuple(notes), axisymmetric)
+
+
+def _axis_facets(mesh) -> np.ndarray:
+    """Boundary facets lying on the axis of revolution x = 0."""
+    boundary = mesh.boundary_facets()
+    on_axis = (np.abs(mesh.p[0, mesh.facets[:, boundary]]) <= 1e-9 * np.ptp(mesh.p[0])).all(axis=0)
+    return boundary[on_axis]
 
 
 def conductor_indicator(problem: "AssembledProblem", conductors: tuple[Conductor, ...]) -> np.ndarray:

@@ -28,7 +28,9 @@ def _render_html(results: dict, figures: list[dict[str, str]]) -> str:
         autoescape=select_autoescape(["html", "j2"]),
         undefined=StrictUndefined,
     )
-    return env.get_template("report.html.j2").render(r=results, figures=figures, vtu_file=VTU_FILE)
+    planar = results["case"]["model"] == "planar"
+    return env.get_template("report.html.j2").render(r=results, figures=figures, vtu_file=VTU_FILE,
+                                                     L="_per_m" if planar else "", PER="/m" if planar else "")
 
 
 def _json_default(value):

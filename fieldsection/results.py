@@ -8,7 +8,9 @@ from typing import Any
 import numpy as np
 
 from . import __version__
-from .case import OUTER_BOUNDARY_KINDS, ScriptGeometry
+import re
+
+from .case import MODELS, OUTER_BOUNDARY_KINDS, ScriptGeometry
 from .pipeline import SectionResult
 
 #: a dielectric body's closed-surface bound charge, relative to its |sigma_b| integral, above which
@@ -41,6 +43,23 @@ def _num(value: float | None, scale: float = 1.0) -> float | None:
 
 
 def build_results(result: SectionResult) -> dict[str, Any]:
+    """Every number of a run; for a body of revolution the per-metre keys become whole-body ones."""
+    results = _build(result)
+    if result.case.model == "planar":
+        return results
+    return _whole_body(results)
+
+
+def _whole_body(value: Any) -> Any:
+    """Rename "..._pF_per_m" to "..._pF" and so on (not "_per_mm"): an axisymmetric model is a whole body."""
+    if isinstance(value, dict):
+        return {re.sub(r"_per_m(?![m0-9])", "", k): _whole_body(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_whole_body(v) for v in value]
+    return value
+
+
+def _build(result: SectionResult) -> dict[str, Any]:
     case, problem, section = result.case, result.problem, result.section
     mesh = section.mesh
     cap = result.capacitance
@@ -83,6 +102,8 @@ def build_results(result: SectionResult) -> dict[str, Any]:
             "case_file": str(case.source_file) if case.source_file else None,
             "geometry_script": str(geometry.path) if isinstance(geometry, ScriptGeometry) else "Python builder",
             "script_parameters": dict(geometry.parameters) if isinstance(geometry, ScriptGeometry) else {},
+            "model": case.model,
+            "model_meaning": MODELS[case.model],
             "outer_boundary": case.outer_boundary,
             "outer_boundary_meaning": OUTER_BOUNDARY_KINDS[case.outer_boundary],
             "hotspot_fraction": case.hotspot_fraction,
@@ -133,7 +154,7 @@ def build_results(result: SectionResult) -> dict[str, Any]:
             "symmetry_copies": cap.copies,
             "two_level": two_level,
         },
-        "energy_per_length_J_per_m": cap.energy_per_length,
+        "stored_energy_J_per_m": cap.energy_per_length,
         "bound_charge": {
             "convention": "sigma_b = P.n with n pointing out of each dielectric; on an interface a|b the two sides add; "
                           "totals for the full section (symmetry copies included)",

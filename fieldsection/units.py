@@ -18,6 +18,7 @@ SI_UNITS = {
     "voltage": "V",
     "field": "V/m",
     "charge": "C/m",  # per unit length of a planar section
+    "total charge": "C",  # of an axisymmetric body
     "dimensionless": "",
 }
 
