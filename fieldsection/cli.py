@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+import time
 from pathlib import Path
 
 from . import __version__
@@ -30,6 +31,7 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--trust-script", action="store_true",
                      help="allow gmsh commands that run programs (System, SystemCall, ...) in the geometry script")
     run.add_argument("--quiet", action="store_true", help="no progress bar and no summary")
+    run.add_argument("--profile", action="store_true", help="print each stage's time and the peak memory after it")
     verbs.add_parser("materials", help="list the shipped materials table")
     return parser
 
@@ -42,18 +44,36 @@ def _run(args: argparse.Namespace) -> int:
     from .report import write_report
 
     case = load_case(args.case, trust_script=args.trust_script)
-    total = len(STAGES) + 6  # computing stages, five figures, the VTU file
+    total = len(STAGES) + 7  # computing stages, results, five figures, the VTU file
     with tqdm(total=total, disable=args.quiet, unit="stage", desc=case.name, file=sys.stderr) as bar:
+        peaks: list[tuple[str, float, float]] = []  # (stage, start time, peak memory so far)
+
         def step(name: str) -> None:  # called as each stage starts
             bar.set_postfix_str(name)
             bar.update(1)
+            peaks.append((name, time.perf_counter(), _peak_memory_gib()))
 
         result = analyse(case, on_stage=step)
         folder = write_report(result, args.reports, with_figures=not args.no_figures, on_step=step)
         bar.update(total - bar.n)
+        peaks.append(("end", time.perf_counter(), _peak_memory_gib()))
     if not args.quiet:
         _summary(result, folder)
+    if args.profile:
+        print(f"{'stage':24s} {'seconds':>9s} {'peak memory after (GiB)':>24s}")
+        for (name, start, _), (_, end, peak) in zip(peaks, peaks[1:]):
+            print(f"{name:24s} {end - start:9.3f} {peak:24.2f}")
+        print(f"{'total':24s} {peaks[-1][1] - peaks[0][1]:9.3f}")
     return EXIT_OK
+
+
+def _peak_memory_gib() -> float:
+    """Largest resident set so far of this process and its finished children (gmsh meshes in one)."""
+    import resource
+
+    own = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    children = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    return max(own, children) / 2**20
 
 
 def _summary(result, folder: Path) -> None:

@@ -47,7 +47,6 @@ def write_report(
     on_step: Callable[[str], None] | None = None,
 ) -> Path:
     """Write ``reports_dir/<case name>/`` atomically and return its path."""
-    from . import figures as fig
     from .vtk_export import write_vtu
 
     reports_dir = Path(reports_dir)
@@ -61,9 +60,13 @@ def write_report(
     os.umask(umask)
     os.chmod(staging, 0o777 & ~umask)  # mkdtemp makes it private; a report folder is an ordinary one
     try:
+        if on_step:
+            on_step("results")
         results = build_results(result)
         figure_list: list[dict[str, str]] = []
         if with_figures:
+            from . import figures as fig  # matplotlib is slow to import: only when drawing
+
             plots = [
                 ("regions.png", "Regions, materials, electrodes and mesh", lambda p: fig.plot_regions(result.problem, p)),
                 ("potential.png", "Potential", lambda p: fig.plot_potential(result.solution, p)),
