@@ -49,6 +49,24 @@ class HotspotResult:
     region_peaks: tuple[RegionPeak, ...]
     hotspots: tuple[Hotspot, ...]  # sorted by utilisation, highest first
     utilisation: np.ndarray  # per element, NaN where no strength is known or not a dielectric
+    triple_points: tuple["TriplePoint", ...] = ()
+
+
+@dataclass(frozen=True)
+class TriplePoint:
+    """A point where a conductor, a solid (or liquid) insulator and a gas meet.
+
+    The field there is usually singular (its exponent depends on the permittivities and angles), so
+    the values are those of the elements touching the point on this mesh: an indication, not a limit.
+    """
+
+    location: tuple[float, float]  # m
+    electrode: str
+    gas_region: str
+    solid_region: str
+    E_gas: float  # V/m, largest |E| at the point in the gas elements touching it
+    E_solid: float  # V/m, likewise in the solid
+    gas_utilisation: float | None  # E_gas / the gas's dielectric strength
 
 
 def find_hotspots(problem: AssembledProblem, fields: ElementFields, fraction: float) -> HotspotResult:
@@ -99,7 +117,49 @@ def find_hotspots(problem: AssembledProblem, fields: ElementFields, fraction: fl
                                     float(areas[members].sum()), int(members.size), float(utilisation[k]),
                                     nearest, distance, members))
         hotspots.sort(key=lambda h: -h.utilisation)
-    return HotspotResult(fraction, tuple(peaks), tuple(hotspots), utilisation)
+    return HotspotResult(fraction, tuple(peaks), tuple(hotspots), utilisation, find_triple_points(problem, fields))
+
+
+def find_triple_points(problem: AssembledProblem, fields: ElementFields) -> tuple[TriplePoint, ...]:
+    """Every conductor vertex touched by both a gas element and a solid or liquid element."""
+    section = problem.section
+    mesh = section.mesh
+    names = section.region_names
+    kind = np.array([problem.material_of_region[n].kind if n in problem.material_of_region else "" for n in names])
+    element_kind = kind[section.region_of_element]
+    n = mesh.nvertices
+    corners = mesh.t.T  # (nelements, 3)
+    magnitude = fields.E_magnitude  # (nelements, 3), at those corners
+
+    def largest_at_vertices(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Per vertex: largest |E| over the masked elements touching it, and the element giving it."""
+        value = np.full(n, -1.0)
+        rows = np.repeat(np.flatnonzero(mask), 3)
+        cols = corners[mask].ravel()
+        vals = magnitude[mask].ravel()
+        order = np.lexsort((vals, cols))  # per vertex, the largest value last
+        last = np.r_[np.flatnonzero(np.diff(cols[order])), order.size - 1] if order.size else order
+        value[cols[order][last]] = vals[order][last]
+        element = np.full(n, -1)
+        element[cols[order][last]] = rows[order][last]
+        return value, element
+
+    gas_E, gas_element = largest_at_vertices(element_kind == "gas")
+    solid_E, solid_element = largest_at_vertices((element_kind == "solid") | (element_kind == "liquid"))
+    points = []
+    for conductor in problem.conductors:
+        if conductor.facets.size == 0:
+            continue
+        vertices = np.unique(mesh.facets[:, conductor.facets])
+        meet = vertices[(gas_E[vertices] >= 0) & (solid_E[vertices] >= 0)]
+        for v in meet:  # triple points are few: a loop over them is fine
+            gas_region = names[section.region_of_element[gas_element[v]]]
+            strength = problem.material_of_region[gas_region].dielectric_strength
+            points.append(TriplePoint(
+                (float(mesh.p[0, v]), float(mesh.p[1, v])), conductor.name, gas_region,
+                names[section.region_of_element[solid_element[v]]], float(gas_E[v]), float(solid_E[v]),
+                None if strength is None else float(gas_E[v] / strength)))
+    return tuple(sorted(points, key=lambda p: -p.E_gas))
 
 
 def _distance_to_segments(point: np.ndarray, ends: np.ndarray) -> float:

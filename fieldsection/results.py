@@ -195,6 +195,18 @@ def _build(result: SectionResult) -> dict[str, Any]:
             }
             for k, h in enumerate(result.hotspots.hotspots)
         ],
+        "triple_points": [
+            {
+                "location_mm": _mm(tp.location),
+                "electrode": tp.electrode,
+                "gas_region": tp.gas_region,
+                "solid_region": tp.solid_region,
+                "E_in_gas_kV_per_mm": tp.E_gas * 1e-6,
+                "E_in_solid_kV_per_mm": tp.E_solid * 1e-6,
+                "gas_fraction_of_strength": tp.gas_utilisation,
+            }
+            for tp in result.hotspots.triple_points
+        ],
         "solver": {"method": "sparse LU (SuperLU), one factorisation for all conductors",
                    "relative_residual": result.solution.relative_residual},
         "notes": list(problem.notes),

@@ -117,3 +117,32 @@ def test_quoted_plain_number_parameter_is_not_metres(tmp_path):
                     '[geometry.parameters]\nr_outer = "3"\nr_inner = "1 mm"\n'
                     '[regions]\ninsulation = "PTFE"\n[electrodes]\ninner = "1 kV"\nouter = "0 V"\n')
     assert load_case(case).geometry.parameters == {"r_outer": 3.0, "r_inner": pytest.approx(1.0)}
+
+
+def side_by_side_builder(geom):
+    """A solid (left) and an air slab (right) side by side between two plates 1 mm apart."""
+    pts = {(x, y): geom.add_point([x, y], 0.1) for x in (0.0, 5.0, 10.0) for y in (0.0, 1.0)}
+    bottom_l, bottom_r = geom.add_line(pts[0, 0], pts[5, 0]), geom.add_line(pts[5, 0], pts[10, 0])
+    top_l, top_r = geom.add_line(pts[5, 1], pts[0, 1]), geom.add_line(pts[10, 1], pts[5, 1])
+    middle = geom.add_line(pts[5, 0], pts[5, 1])
+    left = geom.add_line(pts[0, 1], pts[0, 0])
+    right = geom.add_line(pts[10, 0], pts[10, 1])
+    geom.add_physical(geom.add_plane_surface(geom.add_curve_loop([bottom_l, middle, top_l, left])), "solid")
+    geom.add_physical(geom.add_plane_surface(geom.add_curve_loop([bottom_r, right, top_r, -middle])), "air_gap")
+    geom.add_physical([bottom_l, bottom_r], "bottom")
+    geom.add_physical([top_l, top_r], "top")
+
+
+def test_triple_points_of_layers_parallel_to_the_field():
+    # interface parallel to E: the field is V/d in both layers, right up to the two triple points
+    # where the interface meets the plates (elementary; layers in parallel)
+    case = Case("parallel", BuilderGeometry(side_by_side_builder, 1e-3),
+                {"solid": Material("test solid", 4.0, 20e6), "air_gap": lookup_material("air")},
+                {"top": V, "bottom": 0.0}, outer_boundary="insulated")
+    points = analyse(case).hotspots.triple_points
+    assert sorted((p.electrode, round(p.location[0] * 1e3, 6), round(p.location[1] * 1e3, 6)) for p in points) == [
+        ("bottom", 5.0, 0.0), ("top", 5.0, 1.0)]
+    for p in points:
+        assert (p.gas_region, p.solid_region) == ("air_gap", "solid")
+        assert p.E_gas == pytest.approx(V / D, rel=1e-9) and p.E_solid == pytest.approx(V / D, rel=1e-9)
+        assert p.gas_utilisation == pytest.approx((V / D) / 3e6, rel=1e-9)
