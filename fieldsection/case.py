@@ -105,6 +105,7 @@ class Case:
     insulated_curves: frozenset[str] = frozenset()  # symmetry lines and insulated walls among the curves
     symmetry_copies: int = 1  # the model is 1/copies of the full section
     model: str = "planar"  # or "axisymmetric": x is the radius r >= 0, y the axis z
+    gas_pressure: float = 101_325.0  # Pa, for the partial-discharge screening of gas regions
 
     def __post_init__(self) -> None:
         if not self.regions:
@@ -135,6 +136,9 @@ class Case:
         for name, charge in self.floating.items():
             if not math.isfinite(charge):
                 raise CaseFileError(f"electrodes.{name}: charge {charge!r} is not finite")
+        if not (math.isfinite(self.gas_pressure) and self.gas_pressure > 0):
+            raise CaseFileError(f"hotspots.gas_pressure = {self.gas_pressure!r} Pa: must be a positive pressure, "
+                                "e.g. '1 atm' or '0.5 MPa'")
         if self.model not in MODELS:
             raise CaseFileError(f"geometry.model = {self.model!r}: use one of {', '.join(map(repr, MODELS))}")
         copies = self.symmetry_copies
@@ -312,7 +316,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
     symmetry = _table(data, "symmetry", where)
     _check_keys(symmetry, {"copies"}, f"{where} [symmetry]")
     hotspots = _table(data, "hotspots", where)
-    _check_keys(hotspots, {"fraction"}, f"{where} [hotspots]")
+    _check_keys(hotspots, {"fraction", "gas_pressure"}, f"{where} [hotspots]")
     mesh_table = _table(data, "mesh", where)
     _check_keys(
         mesh_table, {"size", "near_electrodes", "region_sizes", "element_order", "curved"}, f"{where} [mesh]"
@@ -346,6 +350,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         insulated_curves=frozenset(insulated),
         symmetry_copies=_whole(symmetry.get("copies", 1), "symmetry.copies"),
         model=model,
+        gas_pressure=to_si(hotspots.get("gas_pressure", 101_325.0), "pressure", "hotspots.gas_pressure"),
     )
 
 

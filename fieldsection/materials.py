@@ -30,6 +30,7 @@ class Material:
     kind: str = "solid"
     loss_tangent: float | None = None
     source: str = ""
+    paschen: tuple[float, float, float] | None = None  # A (1/(Pa m)), B (V/(Pa m)), secondary emission
 
     def __post_init__(self) -> None:
         er = self.relative_permittivity
@@ -64,7 +65,11 @@ _ALLOWED_KEYS = {
     "dielectric_strength_kV_per_mm",
     "loss_tangent",
     "source",
+    "paschen_A_per_kPa_cm",
+    "paschen_B_V_per_kPa_cm",
+    "secondary_emission",
 }
+_PASCHEN_KEYS = ("paschen_A_per_kPa_cm", "paschen_B_V_per_kPa_cm", "secondary_emission")
 
 
 def material_from_mapping(name: str, entry: Mapping[str, Any], where: str) -> Material:
@@ -90,6 +95,15 @@ def material_from_mapping(name: str, entry: Mapping[str, Any], where: str) -> Ma
             raise MaterialError(f"{where}: dielectric_strength_kV_per_mm must be a number, got {value!r}")
         strength = float(value) * 1e6
     tan_d = entry.get("loss_tangent")
+    paschen = None
+    given = [k for k in _PASCHEN_KEYS if k in entry]
+    if given:
+        if len(given) != 3:
+            raise MaterialError(f"{where}: Paschen constants need all of {', '.join(_PASCHEN_KEYS)}")
+        a, b, gamma = (entry[k] for k in _PASCHEN_KEYS)
+        if not all(isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0 for v in (a, b, gamma)):
+            raise MaterialError(f"{where}: Paschen constants must be positive numbers")
+        paschen = (a / 1e3 / 1e-2, b / 1e3 / 1e-2, float(gamma))  # per kPa cm -> per Pa m
     return Material(
         name=name,
         relative_permittivity=float(er),
@@ -97,6 +111,7 @@ def material_from_mapping(name: str, entry: Mapping[str, Any], where: str) -> Ma
         kind=str(entry.get("kind", "solid")),
         loss_tangent=None if tan_d is None else float(tan_d),
         source=str(entry.get("source", "defined in the case file")),
+        paschen=paschen,
     )
 
 

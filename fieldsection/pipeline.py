@@ -12,6 +12,7 @@ from typing import Callable
 from .capacitance import CapacitanceResult, compute_capacitance
 from .case import Case
 from .charges import ChargeResult, compute_charges
+from .discharge import GasGapScreening, screen_gas_gaps
 from .fields import ElementFields, element_fields
 from .gmsh_adapter import mesh_geometry
 from .hotspots import HotspotResult, find_hotspots
@@ -32,6 +33,7 @@ class SectionResult:
     charges: ChargeResult
     capacitance: CapacitanceResult
     hotspots: HotspotResult
+    gas_gaps: tuple[GasGapScreening, ...] = ()
     stage_seconds: dict[str, float] = field(default_factory=dict)
 
 
@@ -59,7 +61,8 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
     charges = stage("charges", lambda: compute_charges(solution, fields))
     capacitance = stage("capacitance", lambda: compute_capacitance(solution, fields, charges))
     hotspots = stage("hotspots", lambda: find_hotspots(problem, fields, case.hotspot_fraction))
-    return SectionResult(case, section, problem, solution, fields, charges, capacitance, hotspots, seconds)
+    gas_gaps = stage("gas gaps", lambda: screen_gas_gaps(problem, fields, case.gas_pressure))
+    return SectionResult(case, section, problem, solution, fields, charges, capacitance, hotspots, gas_gaps, seconds)
 
 
-STAGES = ("mesh", "open space", "convert mesh", "assemble", "solve", "fields", "charges", "capacitance", "hotspots")
+STAGES = ("mesh", "open space", "convert mesh", "assemble", "solve", "fields", "charges", "capacitance", "hotspots", "gas gaps")

@@ -207,6 +207,24 @@ def _build(result: SectionResult) -> dict[str, Any]:
             }
             for tp in result.hotspots.triple_points
         ],
+        "gas_gap_screening": {
+            "method": "Paschen's law (and, for air, the lower Dakin uniform-field fit) for a uniform gap as long as "
+                      "the field line through the gas region's peak; margin = breakdown voltage / voltage across",
+            "pressure_kPa": result.case.gas_pressure * 1e-3,
+            "regions": [
+                {
+                    "region": g.region,
+                    "material": g.material,
+                    "start_mm": _mm(g.start),
+                    "ends_mm": [_mm(g.ends[0]), _mm(g.ends[1])],
+                    "field_line_length_mm": g.length * 1e3,
+                    "voltage_across_V": g.voltage,
+                    "breakdown_voltage_V": _num(g.breakdown_voltage),
+                    "inception_margin": _num(g.margin),
+                }
+                for g in result.gas_gaps
+            ],
+        },
         "solver": {"method": "sparse LU (SuperLU), one factorisation for all conductors",
                    "relative_residual": result.solution.relative_residual},
         "notes": list(problem.notes),

@@ -19,6 +19,7 @@ SI_UNITS = {
     "field": "V/m",
     "charge": "C/m",  # per unit length of a planar section
     "total charge": "C",  # of an axisymmetric body
+    "pressure": "Pa",
     "dimensionless": "",
 }
 
