@@ -110,7 +110,9 @@ class Case:
     def __post_init__(self) -> None:
         if not self.regions:
             raise CaseFileError(f"case {self.name!r}: no [regions]; map every physical surface to a material")
-        if not self.electrodes:
+        # in an axisymmetric open model the point at infinity (0 V) is the fixed conductor
+        infinity_fixed = self.model == "axisymmetric" and self.outer_boundary == "open" and bool(self.floating)
+        if not self.electrodes and not infinity_fixed:
             detail = " (only floating ones: one conductor needs a fixed potential)" if self.floating else ""
             raise CaseFileError(
                 f"case {self.name!r}: no electrode with a potential{detail}; give at least one physical curve "

@@ -93,15 +93,19 @@ class ChargeResult:
 
 
 def _region_faces(problem: AssembledProblem) -> FacetSides:
-    """Every facet-side where a dielectric element meets another region, a conductor or the boundary."""
+    """Every facet-side where a dielectric element meets another region, a conductor or the boundary
+    (both faces of a strip of zero thickness included)."""
     mesh = problem.section.mesh
     region = problem.section.region_of_element
     f2t = mesh.f2t
+    on_conductor = np.zeros(mesh.nfacets, dtype=bool)
+    for conductor in problem.conductors:
+        on_conductor[conductor.facets] = True
     facets, elements = [], []
     for side in (0, 1):
         elem, other = f2t[side], f2t[1 - side]
         valid = elem >= 0
-        differs = (other < 0) | (region[np.maximum(other, 0)] != region[np.maximum(elem, 0)])
+        differs = (other < 0) | (region[np.maximum(other, 0)] != region[np.maximum(elem, 0)]) | on_conductor
         keep = valid & problem.dielectric[np.maximum(elem, 0)] & differs
         facets.append(np.flatnonzero(keep))
         elements.append(elem[keep])
@@ -142,38 +146,40 @@ def compute_charges(solution: Solution, fields: ElementFields) -> ChargeResult:
         bodies.append(BodyCharge(name, float(per_side[mine].sum()),
                                  float((faces.lengths[mine] * np.abs(p_n[mine]).mean(axis=1)).sum())))
 
-    # label each facet by the two things that meet there; add both sides' P.n per facet
+    # label each face by the two things that meet there: (its region, the other side), where the other
+    # side is a conductor on conductor facets, else the neighbouring region or the kind of boundary
     mesh = section.mesh
     conductor_label = np.full(mesh.nfacets, -1, dtype=np.int64)
     for k, conductor in enumerate(problem.conductors):
         conductor_label[conductor.facets] = k
-    labels = [*names, *(f"electrode {c.name}" if c.name != OUTER_BOUNDARY else c.name
-                        for c in problem.conductors), "insulated boundary"]
     n_regions, n_cond = len(names), len(problem.conductors)
-
-    unique_facets, inverse = np.unique(faces.facets, return_inverse=True)
-    sigma_b = np.zeros((unique_facets.size, 2))
-    np.add.at(sigma_b, inverse, p_n)  # end values follow mesh.facets order on both sides
-
-    f2t = mesh.f2t[:, unique_facets]
-    def label_of(elements: np.ndarray) -> np.ndarray:
-        out = np.full(elements.size, n_regions + n_cond, dtype=np.int64)  # insulated boundary
-        inside = elements >= 0
-        out[inside] = region[elements[inside]]
-        return out
-    a, b = label_of(f2t[0]), label_of(f2t[1])
-    cond = conductor_label[unique_facets]
-    # a conductor face: replace the conductor-side label by the conductor's
-    a = np.where((cond >= 0) & ((f2t[0] < 0) | ~problem.dielectric[np.maximum(f2t[0], 0)]), n_regions + cond, a)
-    b = np.where((cond >= 0) & ((f2t[1] < 0) | ~problem.dielectric[np.maximum(f2t[1], 0)]), n_regions + cond, b)
-    pair_lo, pair_hi = np.minimum(a, b), np.maximum(a, b)
-    totals = np.zeros(unique_facets.size)
-    np.add.at(totals, inverse, per_side)
+    labels = [*names, *(f"electrode {c.name}" if c.name != OUTER_BOUNDARY else c.name for c in problem.conductors),
+              "insulated boundary", "axis"]
+    insulated, axis = n_regions + n_cond, n_regions + n_cond + 1
+    f2t = mesh.f2t[:, faces.facets]
+    other = np.where(f2t[0] == faces.elements, f2t[1], f2t[0])
+    other_label = np.where(other >= 0, region[np.maximum(other, 0)], insulated)
+    if problem.axisymmetric:
+        on_axis = (np.abs(mesh.p[0, mesh.facets[:, faces.facets]]) <= 1e-9 * np.ptp(mesh.p[0])).all(axis=0)
+        other_label = np.where((other < 0) & on_axis, axis, other_label)
+    cond = conductor_label[faces.facets]
+    other_label = np.where(cond >= 0, n_regions + cond, other_label)
+    own = region[faces.elements]
+    # an interface between two regions gathers both of its sides in one row
+    pair_lo, pair_hi = np.minimum(own, other_label), np.maximum(own, other_label)
+    width = len(labels) + 1
+    row_key = pair_lo * width + pair_hi
+    hidden = {names.index(EXTERIOR)} if EXTERIOR in names else set()
+    hidden.add(axis)  # faces on the axis of revolution sweep no area
     interfaces = []
-    pair_key = pair_lo * (len(labels) + 1) + pair_hi
-    for key in np.unique(pair_key):
-        sel = pair_key == key
-        lo, hi = divmod(int(key), len(labels) + 1)
-        interfaces.append(InterfaceCharge(labels[lo], labels[hi], float(totals[sel].sum()),
-                                          float(np.abs(sigma_b[sel]).max()), unique_facets[sel], sigma_b[sel]))
+    for key in np.unique(row_key):  # one row per kind of face, not per facet
+        lo, hi = divmod(int(key), width)
+        if lo in hidden or hi in hidden:
+            continue
+        sel = row_key == key
+        unique_facets, inverse = np.unique(faces.facets[sel], return_inverse=True)
+        sigma_b = np.zeros((unique_facets.size, 2))
+        np.add.at(sigma_b, inverse, p_n[sel])  # end values follow mesh.facets order on every side
+        interfaces.append(InterfaceCharge(labels[lo], labels[hi], float(per_side[sel].sum()),
+                                          float(np.abs(sigma_b).max()), unique_facets, sigma_b))
     return ChargeResult(tuple(conductors), tuple(interfaces), tuple(bodies))

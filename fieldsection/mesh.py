@@ -139,6 +139,12 @@ def find_open_circle(raw: RawMesh, closed_curves: frozenset[str], axisymmetric: 
         raise MeshError(_NOT_A_CIRCLE)
     if np.hypot(*(raw.points - centre).T).max() > radius * (1 + 1e-6):
         raise MeshError("the open-space circle must enclose the whole section; some of it lies outside the circle")
+    if axisymmetric and (len(ends) == 0 or abs(centre[0]) > 1e-6 * radius):
+        raise MeshError(
+            f"in an axisymmetric model the open-space boundary must be an arc centred on the axis x = 0 and ending "
+            f"on it; its centre is at ({centre[0] * 1e3:.4g}, {centre[1] * 1e3:.4g}) mm"
+            + ("" if len(ends) else " and it is a full circle")
+        )
     angle = np.arctan2(*(xy - centre).T[::-1])
     order = np.argsort(angle)
     if len(ends) == 0:

@@ -220,6 +220,12 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
             facets = section.curve_facets[name]
             dofs = basis.get_dofs(facets=facets).all()
             is_region = False
+        if axisymmetric and name not in conductor_regions and facets.size and \
+                np.isin(facets, _axis_facets(mesh, boundary_only=False)).all():
+            raise CaseFileError(
+                f"electrode {name!r} lies on the axis of revolution: a wire of zero radius has no capacitance in "
+                "3D; draw it with a radius"
+            )
         faces, beside = _dielectric_faces(section, facets, dielectric)
         if floating and not faces.size:
             raise CaseFileError(
@@ -243,6 +249,10 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
             dofs = np.unique(basis.get_dofs(facets=outer).all())
             ground = next((k for k, c in enumerate(conductors)
                            if c.potential == 0.0 and np.isin(c.dofs, dofs).any()), None)
+            absorbed = sorted(name for name, f in section.curve_facets.items() if np.isin(f, outer).all())
+            if absorbed:
+                notes.append(f"physical curve(s) {', '.join(map(repr, absorbed))} are grounded as part of the outer "
+                             "boundary; list them under [electrodes] or [boundary.curves] if that is not meant")
             if ground is None:
                 conductors.append(Conductor(OUTER_BOUNDARY, 0.0, dofs, outer, mesh.f2t[0, outer]))
             else:  # a 0 V electrode joined to the grounded boundary (e.g. a ground plane and its enclosure): one conductor
@@ -269,11 +279,11 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
                             free, case.outer_boundary, case.symmetry_copies, tuple(notes), axisymmetric)
 
 
-def _axis_facets(mesh) -> np.ndarray:
-    """Boundary facets lying on the axis of revolution x = 0."""
-    boundary = mesh.boundary_facets()
-    on_axis = (np.abs(mesh.p[0, mesh.facets[:, boundary]]) <= 1e-9 * np.ptp(mesh.p[0])).all(axis=0)
-    return boundary[on_axis]
+def _axis_facets(mesh, boundary_only: bool = True) -> np.ndarray:
+    """Facets (boundary facets only, by default) lying on the axis of revolution x = 0."""
+    candidates = mesh.boundary_facets() if boundary_only else np.arange(mesh.nfacets)
+    on_axis = (np.abs(mesh.p[0, mesh.facets[:, candidates]]) <= 1e-9 * np.ptp(mesh.p[0])).all(axis=0)
+    return candidates[on_axis]
 
 
 def conductor_indicator(problem: "AssembledProblem", conductors: tuple[Conductor, ...]) -> np.ndarray:

@@ -137,8 +137,10 @@ def _build(result: SectionResult) -> dict[str, Any]:
                 "floating": c.floating,
                 "potential_V": floating_potential.get(c.name, c.potential),
                 "charge_from_reaction_C_per_m": float(cap.charges_from_reaction[i]),
-                "charge_from_surface_flux_C_per_m": float(cap.charges_from_flux[i]),
-                "peak_free_surface_charge_uC_per_m2": result.charges.conductors[i].peak_abs_sigma_f * 1e6,
+                # a conductor without a surface (the point at infinity) has no flux to integrate
+                "charge_from_surface_flux_C_per_m": float(cap.charges_from_flux[i]) if c.facets.size else None,
+                "peak_free_surface_charge_uC_per_m2":
+                    result.charges.conductors[i].peak_abs_sigma_f * 1e6 if c.facets.size else None,
             }
             for i, c in enumerate(problem.conductors)
         ],

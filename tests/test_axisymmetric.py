@@ -81,5 +81,47 @@ def test_case_file_and_report_for_a_body_of_revolution(tmp_path):
     c_pf = results["capacitance"]["two_level"]["from_energy_pF"]  # whole body: pF, not pF/m
     assert c_pf == pytest.approx(4 * np.pi * epsilon_0 * 1.002 * 1e-3 * 1e12, rel=1e-3)
     assert "stored_energy_J" in results and "peak_free_surface_charge_uC_per_m2" in results["electrodes"][0]
+    infinity = results["electrodes"][1]
+    assert infinity["name"] == "infinity" and infinity["charge_from_surface_flux_C"] is None  # no surface
     html = (tmp_path / "reports" / "sphere" / "report.html").read_text()
     assert "of the body of revolution" in html and "pF/m" not in html
+
+
+def test_charged_floating_sphere_in_open_space():
+    # a sphere carrying q alone in space sits at q / (4 pi eps0 R) (Gauss's law; same sources)
+    q = 1e-12
+    result = analyse(sphere_case(electrodes={}, floating={"sphere": q}, outer_boundary="open"))
+    (potential,) = result.solution.floating_potentials
+    assert potential == pytest.approx(q / (4 * np.pi * epsilon_0 * 1e-3), rel=1e-3)
+
+
+def test_open_space_off_the_axis_is_refused(tmp_path):
+    ring = tmp_path / "ring.geo"
+    ring.write_text(textwrap.dedent("""
+        SetFactory("OpenCASCADE");
+        Disk(1) = {5, 0, 0, 2};
+        Disk(2) = {5, 0, 0, 0.5};
+        BooleanDifference(3) = { Surface{1}; Delete; }{ Surface{2}; Delete; };
+        Physical Surface("gas") = {3};
+        Physical Curve("ring") = {2};
+    """))
+    case = Case("ring", ScriptGeometry(ring, {}, 1e-3), GAS, {"ring": 1.0}, outer_boundary="open", model="axisymmetric")
+    with pytest.raises(FieldSectionError, match="must be an arc centred on the axis x = 0"):
+        analyse(case)
+
+
+def test_electrode_on_the_axis_is_refused(tmp_path):
+    needle = tmp_path / "needle.geo"
+    needle.write_text(textwrap.dedent("""
+        SetFactory("OpenCASCADE");
+        Rectangle(1) = {0, -5, 0, 5, 10};
+        Point(10) = {0, -1, 0}; Point(11) = {0, 1, 0};
+        Line(10) = {10, 11};
+        BooleanFragments{ Surface{1}; Delete; }{ Curve{10}; Delete; }
+        Physical Surface("gas") = {1};
+        e = 1e-6;
+        Physical Curve("needle") = Curve In BoundingBox{-e, -1 - e, -e, e, 1 + e, e};
+    """))
+    case = Case("needle", ScriptGeometry(needle, {}, 1e-3), GAS, {"needle": 1.0}, model="axisymmetric")
+    with pytest.raises(FieldSectionError, match="electrode 'needle' lies on the axis of revolution"):
+        analyse(case)

@@ -32,6 +32,11 @@ def test_stripline_matches_cohn():
     flux_down = -(strip.sigma_f[~upper].mean(axis=1) * strip.sides.lengths[~upper]).sum()
     assert flux_up == pytest.approx(flux_down, rel=1e-2)
     assert mesh.nelements > 0
+    # Gauss for the polarised dielectric: both faces of the strip count, and the body balances
+    (body,) = result.charges.bodies
+    assert abs(body.bound_charge) < 1e-2 * body.absolute_bound_charge
+    strip_faces = next(f for f in result.charges.interfaces if f.region_b == "electrode strip")
+    assert strip_faces.bound_charge == pytest.approx(-(2.2 - 1) / 2.2 * c_cohn, rel=1e-2)
 
 
 def hammerstad_jensen(u: float, er: float) -> tuple[float, float]:
