@@ -81,7 +81,7 @@ def outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.nd
     mesh = problem.section.mesh
     out = np.zeros(len(elements))
     low, high = local_vertices.min(axis=1), local_vertices.max(axis=1)
-    for k, (a, b) in enumerate(_EDGES):
+    for a, b in _EDGES:
         on_edge = np.flatnonzero((low == a) & (high == b))
         if on_edge.size == 0:
             continue

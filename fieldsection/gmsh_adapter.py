@@ -292,7 +292,7 @@ def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, cur
             if name in curves:
                 electrode_curves.update(curves[name])
             elif name in surfaces:
-                for dim, tag in gmsh.model.getBoundary([(2, s) for s in surfaces[name]], False, False, False):
+                for _, tag in gmsh.model.getBoundary([(2, s) for s in surfaces[name]], False, False, False):
                     electrode_curves.add(abs(tag))
         near = settings.near_electrodes / scale
         far = (settings.size / scale) if settings.size is not None else 10 * near
