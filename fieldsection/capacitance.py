@@ -84,13 +84,14 @@ def compute_capacitance(solution: Solution, fields: ElementFields, charges: Char
     K = problem.stiffness
     U = solution.unit_potentials
     fixed = problem.fixed
-    lifts = conductor_indicator(problem, fixed)
+    every = problem.conductors
+    fixed_index = [i for i, c in enumerate(every) if not c.floating]
+    indicator = conductor_indicator(problem, every)
+    lifts = indicator[:, fixed_index]
     KU = K @ U
     c_charge = copies * (lifts.T @ KU)
     c_energy = copies * (U.T @ KU)
     scale = max(np.abs(c_energy).max(), np.finfo(float).tiny)
-    every = problem.conductors
-    indicator = conductor_indicator(problem, every)
     reaction = copies * (indicator.T @ (K @ solution.potential))
     flux = copies * np.array([c.charge_from_flux for c in charges.conductors])
     names = tuple(c.name for c in fixed)
@@ -104,7 +105,7 @@ def compute_capacitance(solution: Solution, fields: ElementFields, charges: Char
         unit = high.astype(float)  # the high group at 1 V, the low one at 0 V
         # the flux charges belong to the case's potentials; they measure C only when floating conductors are uncharged
         uncharged = all(c.charge == 0.0 for c in problem.floating)
-        fixed_flux = flux[[i for i, c in enumerate(every) if not c.floating]]
+        fixed_flux = flux[fixed_index]
         two_level = TwoLevelCapacitance(
             high=tuple(n for n, h in zip(names, high) if h),
             low=tuple(n for n, h in zip(names, high) if not h),

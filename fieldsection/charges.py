@@ -19,7 +19,7 @@ from scipy.constants import epsilon_0
 
 from .fields import ElementFields, outward_flux
 from .mesh import EXTERIOR
-from .problem import OUTER_BOUNDARY, AssembledProblem
+from .problem import OUTER_BOUNDARY, AssembledProblem, axis_facets
 from .solve import Solution
 
 
@@ -92,15 +92,21 @@ class ChargeResult:
     bodies: tuple[BodyCharge, ...]
 
 
-def _region_faces(problem: AssembledProblem) -> FacetSides:
+def _conductor_of_facet(problem: AssembledProblem) -> np.ndarray:
+    """Index into ``problem.conductors`` of the conductor on each facet, -1 elsewhere."""
+    label = np.full(problem.section.mesh.nfacets, -1, dtype=np.int64)
+    for k, conductor in enumerate(problem.conductors):
+        label[conductor.facets] = k
+    return label
+
+
+def _region_faces(problem: AssembledProblem, conductor_of_facet: np.ndarray) -> FacetSides:
     """Every facet-side where a dielectric element meets another region, a conductor or the boundary
     (both faces of a strip of zero thickness included)."""
     mesh = problem.section.mesh
     region = problem.section.region_of_element
     f2t = mesh.f2t
-    on_conductor = np.zeros(mesh.nfacets, dtype=bool)
-    for conductor in problem.conductors:
-        on_conductor[conductor.facets] = True
+    on_conductor = conductor_of_facet >= 0
     facets, elements = [], []
     for side in (0, 1):
         elem, other = f2t[side], f2t[1 - side]
@@ -134,7 +140,8 @@ def compute_charges(solution: Solution, fields: ElementFields) -> ChargeResult:
             float(np.abs(sigma_f).max()) if sigma_f.size else 0.0, sides, sigma_f,
         ))
 
-    faces = _region_faces(problem)
+    conductor_label = _conductor_of_facet(problem)
+    faces = _region_faces(problem, conductor_label)
     p_n = normal_component(faces, fields.P)
     per_side = _flux(solution, faces, eps - epsilon_0)
     side_region = region[faces.elements]
@@ -149,9 +156,6 @@ def compute_charges(solution: Solution, fields: ElementFields) -> ChargeResult:
     # label each face by the two things that meet there: (its region, the other side), where the other
     # side is a conductor on conductor facets, else the neighbouring region or the kind of boundary
     mesh = section.mesh
-    conductor_label = np.full(mesh.nfacets, -1, dtype=np.int64)
-    for k, conductor in enumerate(problem.conductors):
-        conductor_label[conductor.facets] = k
     n_regions, n_cond = len(names), len(problem.conductors)
     labels = [*names, *(f"electrode {c.name}" if c.name != OUTER_BOUNDARY else c.name for c in problem.conductors),
               "insulated boundary", "axis"]
@@ -160,7 +164,7 @@ def compute_charges(solution: Solution, fields: ElementFields) -> ChargeResult:
     other = np.where(f2t[0] == faces.elements, f2t[1], f2t[0])
     other_label = np.where(other >= 0, region[np.maximum(other, 0)], insulated)
     if problem.axisymmetric:
-        on_axis = (np.abs(mesh.p[0, mesh.facets[:, faces.facets]]) <= 1e-9 * np.ptp(mesh.p[0])).all(axis=0)
+        on_axis = np.isin(faces.facets, axis_facets(mesh))
         other_label = np.where((other < 0) & on_axis, axis, other_label)
     cond = conductor_label[faces.facets]
     other_label = np.where(cond >= 0, n_regions + cond, other_label)

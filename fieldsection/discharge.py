@@ -17,6 +17,7 @@ import numpy as np
 from skfem import MeshTri1
 
 from .fields import ElementFields
+from .mesh import triangle_areas
 from .problem import AssembledProblem
 
 #: standard atmosphere, Pa
@@ -93,9 +94,7 @@ class _FieldLineWalker:
     def __init__(self, flat: MeshTri1, drawn: np.ndarray, region_of_element: np.ndarray, fields: ElementFields):
         self.flat, self.drawn, self.region, self.fields = flat, drawn, region_of_element, fields
         self.find = flat.element_finder()
-        p, t = flat.p, flat.t
-        self.size = np.sqrt(2 * 0.5 * np.abs((p[0, t[1]] - p[0, t[0]]) * (p[1, t[2]] - p[1, t[0]])
-                                             - (p[0, t[2]] - p[0, t[0]]) * (p[1, t[1]] - p[1, t[0]])))
+        self.size = np.sqrt(2 * triangle_areas(flat))
 
     def locate(self, point: np.ndarray) -> int:
         """Index into the flat mesh of the element holding ``point``, or -1 outside."""

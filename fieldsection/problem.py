@@ -221,7 +221,7 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
             dofs = basis.get_dofs(facets=facets).all()
             is_region = False
         if axisymmetric and name not in conductor_regions and facets.size and \
-                np.isin(facets, _axis_facets(mesh, boundary_only=False)).all():
+                np.isin(facets, axis_facets(mesh, boundary_only=False)).all():
             raise CaseFileError(
                 f"electrode {name!r} lies on the axis of revolution: a wire of zero radius has no capacitance in "
                 "3D; draw it with a radius"
@@ -242,7 +242,7 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
         claimed = [section.curve_facets[c.name] for c in conductors if not c.is_region]
         claimed += [section.curve_facets[name] for name in case.insulated_curves]
         if axisymmetric:  # the axis of revolution is no boundary: its facets carry no condition
-            claimed.append(_axis_facets(mesh))
+            claimed.append(axis_facets(mesh))
         outer = np.setdiff1d(mesh.boundary_facets(), np.concatenate(claimed) if claimed else [])
         outer = outer[dielectric[mesh.f2t[0, outer]]]
         if outer.size:
@@ -279,7 +279,7 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
                             free, case.outer_boundary, case.symmetry_copies, tuple(notes), axisymmetric)
 
 
-def _axis_facets(mesh, boundary_only: bool = True) -> np.ndarray:
+def axis_facets(mesh, boundary_only: bool = True) -> np.ndarray:
     """Facets (boundary facets only, by default) lying on the axis of revolution x = 0."""
     candidates = mesh.boundary_facets() if boundary_only else np.arange(mesh.nfacets)
     on_axis = (np.abs(mesh.p[0, mesh.facets[:, candidates]]) <= 1e-9 * np.ptp(mesh.p[0])).all(axis=0)
