@@ -12,6 +12,7 @@ The case file schema (documented in the README) is fieldsection's own::
     [symmetry]      copies = 2 (the model is half of the full section)
     [hotspots]      fraction = 0.5
     [mesh]          size, near_electrodes, element_order, curved, [mesh.region_sizes]
+    [refinement]    adaptive, capacitance_tolerance, field_tolerance, max_dofs, max_passes
 
 Everything here is validated without touching the geometry; names are checked against the
 geometry's physical groups in the mesh stage.
@@ -41,7 +42,7 @@ MODELS = {
     "planar": "a cross-section of a long object; results per metre of length",
     "axisymmetric": "a body of revolution about the y axis (x is the radius); results for the whole body",
 }
-ELEMENT_ORDERS = (1, 2)
+ELEMENT_ORDERS = (1, 2, 3)
 DEFAULT_HOTSPOT_FRACTION = 0.5
 
 
@@ -89,6 +90,38 @@ class MeshSettings:
 
 
 @dataclass(frozen=True)
+class Refinement:
+    """Adaptive refinement: re-mesh where the error indicator is large until the results settle.
+
+    The loop stops when, between two passes, every capacitance entry changes by less than
+    ``capacitance_tolerance`` (relative to the diagonal) and every non-singular peak field by less
+    than ``field_tolerance``, or when the next mesh would exceed ``max_dofs`` or ``max_passes``.
+    ``adaptive = False`` solves once on the first mesh.
+    """
+
+    adaptive: bool = True
+    capacitance_tolerance: float = 1e-4
+    field_tolerance: float = 5e-3
+    max_dofs: int = 200_000
+    max_passes: int = 8
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.adaptive, bool):
+            raise CaseFileError(f"refinement.adaptive = {self.adaptive!r}: must be true or false, without quotes")
+        for label, value in [("refinement.capacitance_tolerance", self.capacitance_tolerance),
+                             ("refinement.field_tolerance", self.field_tolerance)]:
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not (0 < value < 1):
+                raise CaseFileError(f"{label} = {value!r}: a relative change between passes, in (0, 1), e.g. 1e-3")
+        for label, value, least in [("refinement.max_dofs", self.max_dofs, 100),
+                                    ("refinement.max_passes", self.max_passes, 1)]:
+            if isinstance(value, bool) or not isinstance(value, int) or value < least:
+                raise CaseFileError(f"{label} = {value!r}: a whole number of at least {least}")
+
+
+SINGLE_MESH = Refinement(adaptive=False)
+
+
+@dataclass(frozen=True)
 class Case:
     """Everything needed to mesh, solve and report one cross-section. SI units throughout."""
 
@@ -106,6 +139,7 @@ class Case:
     symmetry_copies: int = 1  # the model is 1/copies of the full section
     model: str = "planar"  # or "axisymmetric": x is the radius r >= 0, y the axis z
     gas_pressure: float = 101_325.0  # Pa, for the partial-discharge screening of gas regions
+    refinement: Refinement = field(default_factory=Refinement)
 
     def __post_init__(self) -> None:
         if not self.regions:
@@ -170,7 +204,8 @@ class Case:
         return frozenset(self.electrodes) | frozenset(self.floating)
 
 
-_TOP_KEYS = {"title", "geometry", "regions", "materials", "electrodes", "boundary", "hotspots", "mesh", "symmetry"}
+_TOP_KEYS = {"title", "geometry", "regions", "materials", "electrodes", "boundary", "hotspots", "mesh", "symmetry",
+             "refinement"}
 
 
 def _table(data: Mapping[str, Any], key: str, where: str) -> Mapping[str, Any]:
@@ -337,6 +372,17 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         element_order=_whole(mesh_table.get("element_order", 2), "mesh.element_order"),
         curved=_flag(mesh_table.get("curved", True), "mesh.curved"),
     )
+    refinement_table = _table(data, "refinement", where)
+    _check_keys(refinement_table, {"adaptive", "capacitance_tolerance", "field_tolerance", "max_dofs", "max_passes"},
+                f"{where} [refinement]")
+    defaults = Refinement()
+    refinement = Refinement(
+        adaptive=_flag(refinement_table.get("adaptive", defaults.adaptive), "refinement.adaptive"),
+        capacitance_tolerance=refinement_table.get("capacitance_tolerance", defaults.capacitance_tolerance),
+        field_tolerance=refinement_table.get("field_tolerance", defaults.field_tolerance),
+        max_dofs=_whole(refinement_table.get("max_dofs", defaults.max_dofs), "refinement.max_dofs"),
+        max_passes=_whole(refinement_table.get("max_passes", defaults.max_passes), "refinement.max_passes"),
+    )
     title = data.get("title", "")
     return Case(
         name=path.stem,
@@ -353,6 +399,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         symmetry_copies=_whole(symmetry.get("copies", 1), "symmetry.copies"),
         model=model,
         gas_pressure=to_si(hotspots.get("gas_pressure", 101_325.0), "pressure", "hotspots.gas_pressure"),
+        refinement=refinement,
     )
 
 

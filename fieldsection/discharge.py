@@ -44,6 +44,82 @@ def dakin_air_voltage(pressure_gap: float) -> float:
     return 1e3 * (6.72 * math.sqrt(pd_bar_cm) + 24.36 * pd_bar_cm)
 
 
+#: Peek's law for smooth round conductors in air: E_v = g0 m delta (1 + c / sqrt(delta r)), r in cm,
+#: g0 = 30 kV/cm (peak), c = 0.301 cm^0.5 (F. W. Peek, Dielectric Phenomena in High Voltage Engineering,
+#: McGraw-Hill 1929; as given in Kuffel, Zaengl & Kuffel, High Voltage Engineering, 2000). The
+#: parallel-wire constants, which give a lower onset than the coaxial ones (31, 0.308): the safe side.
+PEEK_G0 = 30e5  # V/m
+PEEK_C = 0.301  # cm^0.5
+
+
+def peek_onset_field(radius: float, relative_density: float = 1.0, surface_factor: float = 1.0) -> float:
+    """Corona onset field (V/m, peak) at the surface of a round conductor of ``radius`` (m) in air.
+
+    ``relative_density`` delta is 1 at 25 degC and 101.3 kPa; ``surface_factor`` m is 1 for a polished
+    surface (0.93-0.98 weathered, 0.83-0.87 stranded, Peek 1929).
+    """
+    if not radius > 0:
+        raise ValueError(f"a conductor radius must be positive, got {radius!r} m")
+    r_cm = radius * 100.0
+    return PEEK_G0 * surface_factor * relative_density * (1.0 + PEEK_C / math.sqrt(relative_density * r_cm))
+
+
+@dataclass(frozen=True)
+class CoronaCheck:
+    """Surface field of a round conductor in air against Peek's onset field."""
+
+    electrode: str
+    gas_region: str
+    radius: float  # m, of the circle the conductor's surface follows
+    surface_field: float  # V/m, largest recovered |E| on the conductor's surface in the air
+    onset_field: float  # V/m, Peek's law at the gas pressure, 25 degC, polished surface
+    location: tuple[float, float]  # m
+
+    @property
+    def margin(self) -> float:
+        """Onset field over surface field: below 1, corona is expected."""
+        return self.onset_field / self.surface_field if self.surface_field > 0 else math.inf
+
+
+def screen_corona(problem: AssembledProblem, magnitude: np.ndarray, pressure: float = ATMOSPHERE
+                  ) -> tuple[CoronaCheck, ...]:
+    """Every conductor whose surface is a circle (or an arc of one) and touches air: Peek's law.
+
+    ``magnitude`` (nelements, 3) is |E| at the element vertices. Planar models only: Peek's law is
+    for long round conductors. The relative air density is taken as pressure / 101.325 kPa (25 degC).
+    """
+    if problem.axisymmetric:
+        return ()
+    section = problem.section
+    mesh = section.mesh
+    names = section.region_names
+    air = np.array([problem.material_of_region.get(n) is not None and problem.material_of_region[n].name == "air"
+                    for n in names])
+    out = []
+    for conductor in problem.conductors:
+        if conductor.facets.size < 6:
+            continue
+        vertices = np.unique(mesh.facets[:, conductor.facets])
+        xy = mesh.p[:, vertices].T
+        design = np.column_stack([2 * xy, np.ones(len(xy))])
+        (a, b, c), *_ = np.linalg.lstsq(design, (xy**2).sum(axis=1), rcond=None)
+        radius = math.sqrt(c + a * a + b * b)
+        if np.abs(np.hypot(*(xy - [a, b]).T) - radius).max() > 1e-3 * radius:
+            continue  # not round
+        in_air = air[section.region_of_element[conductor.facet_dielectric_element]]
+        if not in_air.any():
+            continue
+        elements = conductor.facet_dielectric_element[in_air]
+        on_surface = np.isin(mesh.t[:, elements], vertices).T  # (k, 3)
+        values = np.where(on_surface, magnitude[elements], 0.0)
+        k = np.unravel_index(np.argmax(values), values.shape)
+        where = mesh.p[:, mesh.t[k[1], elements[k[0]]]]
+        region = names[section.region_of_element[elements[k[0]]]]
+        out.append(CoronaCheck(conductor.name, region, radius, float(values[k]),
+                               peek_onset_field(radius, pressure / ATMOSPHERE), (float(where[0]), float(where[1]))))
+    return tuple(sorted(out, key=lambda check: check.margin))
+
+
 @dataclass(frozen=True)
 class GasGapScreening:
     region: str

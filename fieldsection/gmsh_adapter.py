@@ -55,6 +55,16 @@ class RawMesh:
             raise MeshError(f"triangles must have 3 or 6 columns, got shape {self.triangles.shape}")
 
 
+@dataclass(frozen=True)
+class SizeField:
+    """Wanted element size (m) at the vertices of a previous mesh: ``points`` (n, 2) m, ``triangles``
+    (k, 3), ``sizes`` (n,) m. gmsh interpolates it linearly inside each triangle."""
+
+    points: np.ndarray
+    triangles: np.ndarray
+    sizes: np.ndarray
+
+
 @contextmanager
 def _gmsh_session() -> Iterator[object]:
     import gmsh
@@ -82,9 +92,13 @@ def mesh_geometry(
     geometry: ScriptGeometry | BuilderGeometry,
     settings: MeshSettings,
     electrode_names: frozenset[str] = frozenset(),
+    size_field: SizeField | None = None,
 ) -> RawMesh:
-    """Load ``geometry`` into gmsh, mesh it in 2D and return the arrays."""
-    return _isolated(_mesh_here, geometry, settings, electrode_names)
+    """Load ``geometry`` into gmsh, mesh it in 2D and return the arrays.
+
+    ``size_field`` (from adaptive refinement) adds wanted sizes; the smallest size asked for wins.
+    """
+    return _isolated(_mesh_here, geometry, settings, electrode_names, size_field)
 
 
 def mesh_disc(boundary: np.ndarray, centre: np.ndarray, closed: bool = True) -> tuple[np.ndarray, np.ndarray]:
@@ -143,6 +157,7 @@ def _mesh_here(
     geometry: ScriptGeometry | BuilderGeometry,
     settings: MeshSettings,
     electrode_names: frozenset[str],
+    size_field: SizeField | None = None,
 ) -> RawMesh:
     if isinstance(geometry, ScriptGeometry):
         declared = screen_script(geometry.path, geometry.trusted)
@@ -164,7 +179,7 @@ def _mesh_here(
             errors = _gmsh_messages(gmsh, "Error")
             if errors:
                 raise GeometryError(f"gmsh reported an error in the geometry script: {errors[0]}; fix the script")
-            return _mesh_current_model(gmsh, settings, geometry.length_unit_m, electrode_names)
+            return _mesh_current_model(gmsh, settings, geometry.length_unit_m, electrode_names, size_field)
     if isinstance(geometry, BuilderGeometry):
         import pygmsh
 
@@ -177,7 +192,7 @@ def _mesh_here(
             except Exception as exc:
                 raise GeometryError(f"the geometry builder failed: {type(exc).__name__}: {exc}") from exc
             _commit_pygmsh_queues(gmsh, geom)
-            return _mesh_current_model(gmsh, settings, geometry.length_unit_m, electrode_names)
+            return _mesh_current_model(gmsh, settings, geometry.length_unit_m, electrode_names, size_field)
     raise TypeError(f"unsupported geometry source {type(geometry).__name__}")
 
 
@@ -261,7 +276,8 @@ def _physical_groups(gmsh, dim: int) -> dict[str, list[int]]:
     return groups
 
 
-def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, curves: dict, electrodes) -> None:
+def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, curves: dict, electrodes,
+                 size_field: SizeField | None = None) -> None:
     """Translate the case's mesh sizes (metres) into gmsh options and size fields."""
     xmin, ymin, _, xmax, ymax, _ = gmsh.model.getBoundingBox(-1, -1)
     extent = max(xmax - xmin, ymax - ymin) * scale
@@ -306,13 +322,23 @@ def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, cur
         gmsh.model.mesh.field.setNumber(threshold, "DistMin", near)
         gmsh.model.mesh.field.setNumber(threshold, "DistMax", max(far, near) * 4)
         fields.append(threshold)
+    if size_field is not None:
+        corners = size_field.points[size_field.triangles] / scale  # (k, 3, 2), script units
+        data = np.concatenate([corners[..., 0], corners[..., 1], np.zeros((len(corners), 3)),
+                               size_field.sizes[size_field.triangles] / scale], axis=1)
+        view = gmsh.view.add("wanted sizes")
+        gmsh.view.addListData(view, "ST", len(corners), data.ravel())
+        fid = gmsh.model.mesh.field.add("PostView")
+        gmsh.model.mesh.field.setNumber(fid, "ViewTag", view)
+        fields.append(fid)
     if fields:
         combined = gmsh.model.mesh.field.add("Min")
         gmsh.model.mesh.field.setNumbers(combined, "FieldsList", fields)
         gmsh.model.mesh.field.setAsBackgroundMesh(combined)
 
 
-def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_names) -> RawMesh:
+def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_names,
+                        size_field: SizeField | None = None) -> RawMesh:
     surfaces = _physical_groups(gmsh, 2)
     curves = _physical_groups(gmsh, 1)
     if not gmsh.model.getEntities(2):
@@ -324,7 +350,7 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
             f"surface {loose[0]} of the geometry belongs to no physical surface; add it to one, e.g. "
             f"Physical Surface(\"my_region\") = {{{loose[0]}}}; and map it in [regions] (or make it a hole)"
         )
-    _apply_sizes(gmsh, settings, scale, surfaces, curves, electrode_names & (set(surfaces) | set(curves)))
+    _apply_sizes(gmsh, settings, scale, surfaces, curves, electrode_names & (set(surfaces) | set(curves)), size_field)
     try:
         gmsh.model.mesh.generate(2)
         curved = settings.curved

@@ -13,7 +13,6 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
-from .fields import ElementFields
 from .problem import AssembledProblem
 
 
@@ -69,13 +68,13 @@ class TriplePoint:
     gas_utilisation: float | None  # E_gas / the gas's dielectric strength
 
 
-def find_hotspots(problem: AssembledProblem, fields: ElementFields, fraction: float) -> HotspotResult:
+def find_hotspots(problem: AssembledProblem, magnitude: np.ndarray, fraction: float) -> HotspotResult:
+    """Hotspots from ``magnitude`` (nelements, 3): |E| at each element's vertices, V/m (the recovered field)."""
     section = problem.section
     mesh = section.mesh
     region = section.region_of_element
     names = section.region_names
-    peak = fields.element_peak_E
-    magnitude = fields.E_magnitude
+    peak = magnitude.max(axis=1)
     peak_vertex = mesh.t[np.argmax(magnitude, axis=1), np.arange(mesh.nelements)]
 
     strength = np.full(mesh.nelements, np.nan)
@@ -117,10 +116,10 @@ def find_hotspots(problem: AssembledProblem, fields: ElementFields, fraction: fl
                                     float(areas[members].sum()), int(members.size), float(utilisation[k]),
                                     nearest, distance, members))
         hotspots.sort(key=lambda h: -h.utilisation)
-    return HotspotResult(fraction, tuple(peaks), tuple(hotspots), utilisation, find_triple_points(problem, fields))
+    return HotspotResult(fraction, tuple(peaks), tuple(hotspots), utilisation, find_triple_points(problem, magnitude))
 
 
-def find_triple_points(problem: AssembledProblem, fields: ElementFields) -> tuple[TriplePoint, ...]:
+def find_triple_points(problem: AssembledProblem, magnitude: np.ndarray) -> tuple[TriplePoint, ...]:
     """Every conductor vertex touched by both a gas element and a solid or liquid element."""
     section = problem.section
     mesh = section.mesh
@@ -129,7 +128,6 @@ def find_triple_points(problem: AssembledProblem, fields: ElementFields) -> tupl
     element_kind = kind[section.region_of_element]
     n = mesh.nvertices
     corners = mesh.t.T  # (nelements, 3)
-    magnitude = fields.E_magnitude  # (nelements, 3), at those corners
 
     def largest_at_vertices(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Per vertex: largest |E| over the masked elements touching it, and the element giving it."""

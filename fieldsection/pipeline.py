@@ -1,29 +1,50 @@
 """The pipeline, stage by stage: case -> mesh -> assembled problem -> solution -> derived quantities.
 
-Each stage's output is an immutable value passed downstream; nothing reaches back upstream.
+Each stage's output is an immutable value passed downstream; nothing reaches back upstream. With
+adaptive refinement the whole chain runs again on a finer mesh, driven by the previous pass's
+error indicator, until the capacitance and every non-singular peak field settle.
 """
 
 from __future__ import annotations
 
 import time
 from dataclasses import dataclass, field
-from typing import Callable
+from typing import Callable, Mapping
 
+import numpy as np
+from scipy.spatial import cKDTree
+
+from .adapt import PassRecord, RegionVertexField, region_vertex_fields, wanted_sizes
 from .capacitance import CapacitanceResult, compute_capacitance
 from .case import Case
+from .certificate import SINGULAR, PeakCertificate, certify
 from .charges import ChargeResult, compute_charges
-from .discharge import GasGapScreening, screen_gas_gaps
+from .discharge import CoronaCheck, GasGapScreening, screen_corona, screen_gas_gaps
 from .fields import ElementFields, element_fields
-from .gmsh_adapter import mesh_geometry
+from .gmsh_adapter import SizeField, mesh_geometry
 from .hotspots import HotspotResult, find_hotspots
 from .mesh import SectionMesh, add_open_space, build_section_mesh, find_open_circle
 from .problem import AssembledProblem, assemble
+from .recovery import Recovery, recover_field
+from .singularity import corner_theory
 from .solve import Solution, solve
+
+#: mesh growth asked of each adaptive pass (elements of the next mesh / elements of this one)
+GROWTH_PER_PASS = 2.5
+
+
+@dataclass(frozen=True)
+class Certificates:
+    """A certificate for every reported peak: per dielectric region, per hotspot, per triple point."""
+
+    regions: Mapping[str, PeakCertificate]
+    hotspots: tuple[PeakCertificate, ...]  # in the order of ``HotspotResult.hotspots``
+    triple_points: tuple[PeakCertificate, ...]  # in the order of ``HotspotResult.triple_points``
 
 
 @dataclass(frozen=True)
 class SectionResult:
-    """Everything computed for one case; the report stage only reads it."""
+    """Everything computed for one case (on the last mesh); the report stage only reads it."""
 
     case: Case
     section: SectionMesh
@@ -35,6 +56,23 @@ class SectionResult:
     hotspots: HotspotResult
     gas_gaps: tuple[GasGapScreening, ...] = ()
     stage_seconds: dict[str, float] = field(default_factory=dict)
+    recovery: Recovery | None = None
+    passes: tuple[PassRecord, ...] = ()
+    certificates: Certificates | None = None
+    stop_reason: str = ""
+    corona: tuple[CoronaCheck, ...] = ()
+
+
+@dataclass(frozen=True)
+class _Pass:
+    section: SectionMesh
+    problem: AssembledProblem
+    solution: Solution
+    fields: ElementFields
+    charges: ChargeResult
+    capacitance: CapacitanceResult
+    recovery: Recovery
+    record: PassRecord
 
 
 def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> SectionResult:
@@ -46,23 +84,155 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
             on_stage(name)
         start = time.perf_counter()
         value = work()
-        seconds[name] = time.perf_counter() - start
+        seconds[name] = seconds.get(name, 0.0) + time.perf_counter() - start
         return value
 
-    raw = stage("mesh", lambda: mesh_geometry(case.geometry, case.mesh, case.conductor_names))
+    settings = case.refinement
+    passes: list[_Pass] = []
+    size_field: SizeField | None = None
+    stop_reason = "adaptive refinement is off: one mesh" if not settings.adaptive else ""
+    growth = GROWTH_PER_PASS
+    overshoot = 1.0  # DOFs gmsh delivers / DOFs asked for, learnt from the passes so far
+    while True:
+        current = _one_pass(case, size_field, stage)
+        if passes:
+            overshoot = current.problem.ndofs / (passes[-1].problem.ndofs * growth)
+        if passes and current.problem.ndofs > settings.max_dofs:
+            # gmsh made more elements than asked: ask for fewer, or stop at the budget
+            growth *= 0.9 * settings.max_dofs / current.problem.ndofs
+            if growth < 1.15:
+                stop_reason = f"DOF budget of {settings.max_dofs} spent"
+                break
+            size_field = stage("refine", lambda: wanted_sizes(passes[-1].section,
+                                                              passes[-1].recovery.refinement_indicator,
+                                                              case.mesh.element_order, growth))
+            continue
+        passes.append(current)
+        if not settings.adaptive:
+            break
+        if len(passes) >= 2 and _settled(case, passes):
+            stop_reason = f"converged in {len(passes)} passes"
+            break
+        if len(passes) >= settings.max_passes:
+            stop_reason = f"pass limit of {settings.max_passes} reached"
+            break
+        growth = min(GROWTH_PER_PASS, 0.9 * settings.max_dofs / (current.problem.ndofs * max(overshoot, 1.0)))
+        if growth < 1.15:
+            stop_reason = f"DOF budget of {settings.max_dofs} spent"
+            break
+        size_field = stage("refine", lambda: wanted_sizes(current.section, current.recovery.refinement_indicator,
+                                                          case.mesh.element_order, growth))
+
+    last = passes[-1]
+    problem = last.problem
+    magnitude = last.recovery.peak_search_field(last.fields.E_magnitude, problem.element_order)
+    hotspots = stage("hotspots", lambda: find_hotspots(problem, magnitude, case.hotspot_fraction))
+    gas_gaps = stage("gas gaps", lambda: screen_gas_gaps(problem, last.fields, case.gas_pressure))
+    corona = stage("corona", lambda: screen_corona(problem, magnitude, case.gas_pressure))
+    certificates = stage("certificates", lambda: _certify_all(case, passes, hotspots))
+    return SectionResult(case, last.section, problem, last.solution, last.fields, last.charges, last.capacitance,
+                         hotspots, gas_gaps, seconds, last.recovery, tuple(p.record for p in passes), certificates,
+                         stop_reason, corona)
+
+
+def _one_pass(case: Case, size_field: SizeField | None, stage) -> _Pass:
+    start = time.perf_counter()
+    raw = stage("mesh", lambda: mesh_geometry(case.geometry, case.mesh, case.conductor_names, size_field))
     circle = None
     if case.outer_boundary == "open":
         circle = find_open_circle(raw, case.conductor_names | case.insulated_curves, case.model == "axisymmetric")
     raw = stage("open space", lambda: raw if circle is None else add_open_space(raw, circle))
     section = stage("convert mesh", lambda: build_section_mesh(raw, circle))
     problem = stage("assemble", lambda: assemble(case, section))
+    if size_field is not None and problem.ndofs > case.refinement.max_dofs:
+        return _Pass(section, problem, None, None, None, None, None, None)  # over budget: not solved
     solution = stage("solve", lambda: solve(problem))
     fields = stage("fields", lambda: element_fields(solution))
+    recovery = stage("recovery", lambda: recover_field(solution, case.refinement.adaptive))
     charges = stage("charges", lambda: compute_charges(solution, fields))
     capacitance = stage("capacitance", lambda: compute_capacitance(solution, fields, charges))
-    hotspots = stage("hotspots", lambda: find_hotspots(problem, fields, case.hotspot_fraction))
-    gas_gaps = stage("gas gaps", lambda: screen_gas_gaps(problem, fields, case.gas_pressure))
-    return SectionResult(case, section, problem, solution, fields, charges, capacitance, hotspots, gas_gaps, seconds)
+    regions = list(problem.material_of_region)
+    vertex_fields = region_vertex_fields(section, recovery.peak_search_field(fields.E_magnitude, problem.element_order),
+                                         regions)
+    record = PassRecord(problem.ndofs, section.mesh.nelements, capacitance.maxwell_from_charge,
+                        capacitance.energy_per_length, recovery.estimated_error,
+                        {name: float(v.values.max()) for name, v in vertex_fields.items()}, vertex_fields,
+                        time.perf_counter() - start)
+    return _Pass(section, problem, solution, fields, charges, capacitance, recovery, record)
 
 
-STAGES = ("mesh", "open space", "convert mesh", "assemble", "solve", "fields", "charges", "capacitance", "hotspots", "gas gaps")
+def _settled(case: Case, passes: list[_Pass]) -> bool:
+    """Capacitance settled, and every region's peak settled or found singular."""
+    before, now = passes[-2].record, passes[-1].record
+    scale = np.abs(np.diag(now.capacitance)).max()
+    if np.abs(now.capacitance - before.capacitance).max() > case.refinement.capacitance_tolerance * scale:
+        return False
+    regional = _certify_regions(case, passes)
+    return all(c.status != "not converged" for c in regional.values())
+
+
+def _certify_regions(case: Case, passes: list[_Pass]) -> dict[str, PeakCertificate]:
+    problem = passes[-1].problem
+    tree = cKDTree(problem.section.mesh.p.T)
+    out = {}
+    for name in problem.material_of_region:
+        field_now = passes[-1].record.vertex_fields[name]
+        k = int(np.argmax(field_now.values))
+        history = [p.record.vertex_fields[name] for p in passes]
+        values = [float(v.values.max()) for v in history]
+        sizes = [float(v.sizes[int(np.argmax(v.values))]) for v in history]
+        out[name] = _certificate(case, passes, tree, name, field_now.points[k], values, sizes)
+    return out
+
+
+def _certificate(case: Case, passes: list[_Pass], tree: cKDTree, region: str, point: np.ndarray,
+                 values: list[float], sizes: list[float]) -> PeakCertificate:
+    last = passes[-1]
+    # the corner a peak belongs to may be a vertex or two away from the largest value
+    near = tree.query_ball_point(point, 2.5 * sizes[-1])
+    theories = [t for t in (corner_theory(last.problem, int(v)) for v in near) if t is not None]
+    theory = min(theories, key=lambda t: t.exponent, default=None)
+    strength = last.problem.material_of_region[region].dielectric_strength
+    allowed = None if strength is None else case.hotspot_fraction * strength
+    single_mesh_error = None
+    if len(passes) == 1:  # one mesh: the gap between the element's own and the recovered field
+        raw = region_vertex_fields(last.section, last.fields.E_magnitude, [region])[region]
+        own = raw.peak_near(point, 1e-9 * float(np.ptp(last.section.mesh.p)))
+        if own is not None and values[-1] > 0:
+            single_mesh_error = abs(own[0] - values[-1]) / values[-1]
+    return certify(values, sizes, theory, case.refinement.field_tolerance, allowed, single_mesh_error)
+
+
+def _track(passes: list[_Pass], region: str, point: np.ndarray) -> tuple[list[float], list[float]]:
+    """The peak of ``region`` near ``point`` in every pass: within the first pass's local element size."""
+    first: RegionVertexField = passes[0].record.vertex_fields[region]
+    _, nearest = cKDTree(first.points).query(point)
+    radius = 1.5 * float(first.sizes[nearest])
+    values, sizes = [], []
+    for p in passes:
+        found = p.record.vertex_fields[region].peak_near(point, radius)
+        if found is None:
+            found = p.record.vertex_fields[region].peak_near(point, np.inf)
+        values.append(found[0])
+        sizes.append(found[1])
+    return values, sizes
+
+
+def _certify_all(case: Case, passes: list[_Pass], hotspots: HotspotResult) -> Certificates:
+    problem = passes[-1].problem
+    tree = cKDTree(problem.section.mesh.p.T)
+    regions = _certify_regions(case, passes)
+    spots = []
+    for spot in hotspots.hotspots:
+        values, sizes = _track(passes, spot.region, np.array(spot.location))
+        spots.append(_certificate(case, passes, tree, spot.region, np.array(spot.location), values, sizes))
+    triples = []
+    for point in hotspots.triple_points:
+        values, sizes = _track(passes, point.gas_region, np.array(point.location))
+        triples.append(_certificate(case, passes, tree, point.gas_region, np.array(point.location), values, sizes))
+    return Certificates(regions, tuple(spots), tuple(triples))
+
+
+STAGES = ("mesh", "open space", "convert mesh", "assemble", "solve", "fields", "recovery", "charges", "capacitance",
+          "refine", "hotspots", "gas gaps", "corona", "certificates")
+__all__ = ["SINGULAR", "STAGES", "Certificates", "SectionResult", "analyse"]

@@ -13,7 +13,7 @@ from typing import Mapping
 import numpy as np
 import scipy.sparse as sp
 from scipy.constants import epsilon_0
-from skfem import Basis, ElementTriP1, ElementTriP2
+from skfem import Basis, ElementTriP1, ElementTriP2, ElementTriP3
 
 from .case import Case
 from .errors import CaseFileError
@@ -23,7 +23,7 @@ from .mesh import EXTERIOR, SectionMesh
 
 OUTER_BOUNDARY = "outer boundary"
 INFINITY = "infinity"  # the far surroundings of an axisymmetric open-space model, at 0 V
-_ELEMENTS = {1: ElementTriP1, 2: ElementTriP2}
+_ELEMENTS = {1: ElementTriP1, 2: ElementTriP2, 3: ElementTriP3}
 
 
 @dataclass(frozen=True)
@@ -75,7 +75,7 @@ class AssembledProblem:
 
     @property
     def element_order(self) -> int:
-        return 2 if isinstance(self.basis.elem, ElementTriP2) else 1
+        return next(order for order, kind in _ELEMENTS.items() if type(self.basis.elem) is kind)
 
     @property
     def ndofs(self) -> int:
@@ -150,7 +150,7 @@ def _medium_beyond(case: Case, section: SectionMesh) -> float:
     return materials.pop()
 
 
-def _weighted_permittivity(basis: Basis, section: SectionMesh, er: np.ndarray, axisymmetric: bool) -> np.ndarray:
+def weighted_permittivity(basis: Basis, section: SectionMesh, er: np.ndarray, axisymmetric: bool) -> np.ndarray:
     """eps at every quadrature point, F/m, with the weights of the model.
 
     Planar: eps per element, as ``eps[:, None]`` (a flat array would be read as nodal values).
@@ -201,7 +201,7 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
             f"a point of the axisymmetric model lies at r < 0: ({mesh.p[0, k] * 1e3:.4g}, {mesh.p[1, k] * 1e3:.4g}) mm; "
             "x is the radius, so draw the section at x >= 0 with the axis of revolution on x = 0"
         )
-    stiffness = permittivity_laplace.assemble(basis, eps=_weighted_permittivity(basis, section, er, axisymmetric)).tocsr()
+    stiffness = permittivity_laplace.assemble(basis, eps=weighted_permittivity(basis, section, er, axisymmetric)).tocsr()
 
     conductors: list[Conductor] = []
     wanted = [(name, v, False) for name, v in case.electrodes.items()] + [(n, q, True) for n, q in case.floating.items()]

@@ -11,6 +11,7 @@ from . import __version__
 import re
 
 from .case import MODELS, OUTER_BOUNDARY_KINDS, ScriptGeometry
+from .certificate import SINGULAR
 from .pipeline import SectionResult
 
 #: a dielectric body's closed-surface bound charge, relative to its |sigma_b| integral, above which
@@ -42,6 +43,63 @@ def _num(value: float | None, scale: float = 1.0) -> float | None:
     return float(value) * scale
 
 
+def _certified(cert, value: float, strength: float | None) -> dict[str, Any]:
+    """A peak field with its certificate; a singular value is labelled mesh-dependent, never a peak field."""
+    if cert is None:
+        return {"peak_E_kV_per_mm": value * 1e-6, "status": "not certified"}
+    value = cert.value  # the tracked value: its history ends with it
+    singular = cert.status == SINGULAR
+    share = None if strength is None else value / strength
+    out: dict[str, Any] = {
+        "status": cert.status,
+        "peak_E_kV_per_mm": None if singular else value * 1e-6,
+        "fraction_of_strength": None if singular else share,
+        "estimated_relative_error": _num(cert.relative_error),
+        "measured_growth_exponent": _num(cert.measured_exponent),
+        "corner_theory_exponent": _num(cert.theory_exponent),
+        "corner_field_side_angle_deg": _num(cert.field_angle_deg),
+        "history_kV_per_mm": [v * 1e-6 for v in cert.history],
+        "local_element_size_mm": [h * 1e3 for h in cert.sizes],
+    }
+    if singular:
+        out["mesh_dependent_E_kV_per_mm"] = value * 1e-6
+        out["mesh_dependent_fraction_of_strength"] = share
+        out["advised_edge_radius_mm"] = _num(cert.advised_radius, 1e3)
+    return out
+
+
+def _refinement(result: SectionResult) -> dict[str, Any]:
+    settings = result.case.refinement
+    rows = []
+    previous = None
+    for k, record in enumerate(result.passes):
+        C = record.capacitance * result.capacitance.copies
+        change = None
+        if previous is not None:
+            change = float(np.abs(C - previous).max() / np.abs(np.diag(C)).max())
+        rows.append({
+            "pass": k + 1,
+            "degrees_of_freedom": record.ndofs,
+            "triangles": record.nelements,
+            "capacitance_diagonal_pF_per_m": (np.diag(C) * 1e12).tolist(),
+            "capacitance_relative_change": change,
+            "estimated_energy_error": record.estimated_error,
+            "peak_E_kV_per_mm": {name: v * 1e-6 for name, v in record.region_peaks.items()},
+            "seconds": record.seconds,
+        })
+        previous = C
+    return {
+        "adaptive": settings.adaptive,
+        "stopped_because": result.stop_reason,
+        "capacitance_tolerance": settings.capacitance_tolerance,
+        "field_tolerance": settings.field_tolerance,
+        "max_dofs": settings.max_dofs,
+        "error_indicator": "Zienkiewicz-Zhu: energy of (recovered E - computed E) per element; the recovered E is "
+                           "the L2 projection onto continuous polynomials of the element order, region by region",
+        "passes": rows,
+    }
+
+
 def build_results(result: SectionResult) -> dict[str, Any]:
     """Every number of a run; for a body of revolution the per-metre keys become whole-body ones."""
     results = _build(result)
@@ -66,6 +124,7 @@ def _build(result: SectionResult) -> dict[str, Any]:
     geometry = case.geometry
     edge = np.hypot(*(mesh.p[:, mesh.facets[0]] - mesh.p[:, mesh.facets[1]]))
     pf = 1e12
+    certificates = result.certificates
 
     floating_potential = {c.name: float(v) for c, v in zip(problem.floating, result.solution.floating_potentials)}
     copies = cap.copies  # charges are reported for the full section
@@ -171,14 +230,14 @@ def _build(result: SectionResult) -> dict[str, Any]:
             "bodies": bodies,
             "body_balance_tolerance": BODY_BALANCE_TOLERANCE,
         },
+        "refinement": _refinement(result),
         "peak_fields": [
             {
                 "region": p.region,
                 "material": p.material,
-                "peak_E_kV_per_mm": p.peak_E * 1e-6,
                 "location_mm": _mm(p.location),
                 "dielectric_strength_kV_per_mm": _num(p.strength, 1e-6),
-                "fraction_of_strength": p.utilisation,
+                **_certified(certificates.regions.get(p.region) if certificates else None, p.peak_E, p.strength),
             }
             for p in result.hotspots.region_peaks
         ],
@@ -187,13 +246,13 @@ def _build(result: SectionResult) -> dict[str, Any]:
                 "rank": k + 1,
                 "region": h.region,
                 "material": h.material,
-                "peak_E_kV_per_mm": h.peak_E * 1e-6,
                 "location_mm": _mm(h.location),
                 "area_mm2": h.area * 1e6,  # of the region in the drawn model
                 "triangles": h.n_elements,
-                "fraction_of_strength": h.utilisation,
                 "nearest_electrode": h.nearest_electrode,
                 "distance_to_electrode_mm": _num(h.distance_to_electrode, 1e3),
+                **_certified(certificates.hotspots[k] if certificates else None, h.peak_E,
+                             h.peak_E / h.utilisation if h.utilisation else None),
             }
             for k, h in enumerate(result.hotspots.hotspots)
         ],
@@ -203,11 +262,11 @@ def _build(result: SectionResult) -> dict[str, Any]:
                 "electrode": tp.electrode,
                 "gas_region": tp.gas_region,
                 "solid_region": tp.solid_region,
-                "E_in_gas_kV_per_mm": tp.E_gas * 1e-6,
-                "E_in_solid_kV_per_mm": tp.E_solid * 1e-6,
-                "gas_fraction_of_strength": tp.gas_utilisation,
+                "E_in_solid_kV_per_mm_on_this_mesh": tp.E_solid * 1e-6,
+                "gas": _certified(certificates.triple_points[k] if certificates else None, tp.E_gas,
+                                  tp.E_gas / tp.gas_utilisation if tp.gas_utilisation else None),
             }
-            for tp in result.hotspots.triple_points
+            for k, tp in enumerate(result.hotspots.triple_points)
         ],
         "gas_gap_screening": {
             "method": "Paschen's law (and, for air, the lower Dakin uniform-field fit) for a uniform gap as long as "
@@ -225,6 +284,23 @@ def _build(result: SectionResult) -> dict[str, Any]:
                     "inception_margin": _num(g.margin),
                 }
                 for g in result.gas_gaps
+            ],
+        },
+        "corona_onset": {
+            "method": "Peek's law for smooth round conductors in air, parallel-wire constants (g0 = 30 kV/cm peak, "
+                      "0.301 cm^0.5), relative air density = pressure / 101.325 kPa (25 degC), polished surface; "
+                      "margin = onset field / surface field",
+            "conductors": [
+                {
+                    "electrode": c.electrode,
+                    "gas_region": c.gas_region,
+                    "radius_mm": c.radius * 1e3,
+                    "surface_E_kV_per_mm": c.surface_field * 1e-6,
+                    "onset_E_kV_per_mm": c.onset_field * 1e-6,
+                    "margin": _num(c.margin),
+                    "location_mm": _mm(c.location),
+                }
+                for c in result.corona
             ],
         },
         "solver": {"method": "sparse LU (SuperLU), one factorisation for all conductors",

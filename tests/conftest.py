@@ -7,14 +7,15 @@ from pathlib import Path
 import pytest
 
 from fieldsection import Case, Material, MeshSettings, ScriptGeometry, analyse
+from fieldsection.case import SINGLE_MESH, Refinement
 
 GEOMETRIES = Path(__file__).resolve().parent.parent / "geometries"
 
 
 def solve_script(script: str, regions: dict[str, Material], electrodes: dict[str, float], *,
                  parameters: dict[str, float] | None = None, order: int = 2, curved: bool = True,
-                 outer: str = "grounded", fraction: float = 0.5):
-    """Analyse a geometry from ``geometries/`` whose lengths are in mm."""
+                 outer: str = "grounded", fraction: float = 0.5, refinement: Refinement = SINGLE_MESH):
+    """Analyse a geometry from ``geometries/`` whose lengths are in mm (one mesh unless ``refinement`` says)."""
     case = Case(
         name=Path(script).stem,
         geometry=ScriptGeometry(GEOMETRIES / script, parameters or {}, 1e-3),
@@ -22,7 +23,7 @@ def solve_script(script: str, regions: dict[str, Material], electrodes: dict[str
         electrodes=electrodes,
         outer_boundary=outer,
         hotspot_fraction=fraction,
-        mesh=MeshSettings(element_order=order, curved=curved),
+        mesh=MeshSettings(element_order=order, curved=curved), refinement=refinement
     )
     return analyse(case)
 

@@ -19,6 +19,7 @@ from scipy.constants import epsilon_0
 from conftest import GEOMETRIES
 from fieldsection import Case, FieldSectionError, Material, MeshSettings, ScriptGeometry, analyse
 from fieldsection.cli import main
+from fieldsection.case import SINGLE_MESH
 
 GAS = {"gas": Material("vacuum", 1.0, None)}
 
@@ -26,7 +27,7 @@ GAS = {"gas": Material("vacuum", 1.0, None)}
 def sphere_case(**kwargs):
     parameters = kwargs.pop("parameters", {})
     return Case("sphere", ScriptGeometry(GEOMETRIES / "sphere.geo", parameters, 1e-3), GAS, model="axisymmetric",
-                mesh=MeshSettings(element_order=2), **kwargs)
+                mesh=MeshSettings(element_order=2), **kwargs, refinement=SINGLE_MESH)
 
 
 @pytest.mark.parametrize("space_radius", [2.0, 5.0])
@@ -56,7 +57,7 @@ def test_point_at_negative_radius_is_refused(tmp_path):
     shifted = tmp_path / "shifted.geo"
     shifted.write_text((GEOMETRIES / "coaxial.geo").read_text())  # centred on x = 0: half of it at r < 0
     case = Case("bad", ScriptGeometry(shifted, {}, 1e-3), {"insulation": Material("m", 2.0, None)},
-                {"inner": 1.0, "outer": 0.0}, model="axisymmetric")
+                {"inner": 1.0, "outer": 0.0}, model="axisymmetric", refinement=SINGLE_MESH)
     with pytest.raises(FieldSectionError, match="lies at r < 0"):
         analyse(case)
 
@@ -105,7 +106,7 @@ def test_open_space_off_the_axis_is_refused(tmp_path):
         Physical Surface("gas") = {3};
         Physical Curve("ring") = {2};
     """))
-    case = Case("ring", ScriptGeometry(ring, {}, 1e-3), GAS, {"ring": 1.0}, outer_boundary="open", model="axisymmetric")
+    case = Case("ring", ScriptGeometry(ring, {}, 1e-3), GAS, {"ring": 1.0}, outer_boundary="open", model="axisymmetric", refinement=SINGLE_MESH)
     with pytest.raises(FieldSectionError, match="must be an arc centred on the axis x = 0"):
         analyse(case)
 
@@ -122,6 +123,6 @@ def test_electrode_on_the_axis_is_refused(tmp_path):
         e = 1e-6;
         Physical Curve("needle") = Curve In BoundingBox{-e, -1 - e, -e, e, 1 + e, e};
     """))
-    case = Case("needle", ScriptGeometry(needle, {}, 1e-3), GAS, {"needle": 1.0}, model="axisymmetric")
+    case = Case("needle", ScriptGeometry(needle, {}, 1e-3), GAS, {"needle": 1.0}, model="axisymmetric", refinement=SINGLE_MESH)
     with pytest.raises(FieldSectionError, match="electrode 'needle' lies on the axis of revolution"):
         analyse(case)

@@ -16,6 +16,7 @@ from scipy.constants import epsilon_0
 
 from conftest import GEOMETRIES
 from fieldsection import Case, Material, MeshSettings, ScriptGeometry, analyse, load_case
+from fieldsection.case import SINGLE_MESH
 
 A, R1, R2, B, ER, V = 1e-3, 1.8e-3, 1.9e-3, 3e-3, 2.25, 1000.0
 C1 = 2 * np.pi * epsilon_0 * ER / np.log(R1 / A)
@@ -27,7 +28,7 @@ def shell_case(charge=0.0, r_in=1.8, r_out=1.9):
     return Case("shell", ScriptGeometry(GEOMETRIES / "coaxial_floating_shell.geo",
                                         {"r_shell_in": r_in, "r_shell_out": r_out}, 1e-3),
                 {"inner_gap": dielectric, "outer_gap": dielectric}, {"inner": V, "outer": 0.0},
-                floating={"shell": charge}, mesh=MeshSettings(element_order=2))
+                floating={"shell": charge}, mesh=MeshSettings(element_order=2), refinement=SINGLE_MESH)
 
 
 def test_uncharged_shell_gives_series_capacitance_and_its_potential():
@@ -84,4 +85,4 @@ def test_only_floating_electrodes_is_refused():
 
     with pytest.raises(FieldSectionError, match="no electrode with a potential .only floating ones"):
         Case("x", ScriptGeometry(GEOMETRIES / "coaxial.geo"), {"insulation": Material("m", 2.0, None)}, {},
-             floating={"inner": 0.0, "outer": 0.0})
+             floating={"inner": 0.0, "outer": 0.0}, refinement=SINGLE_MESH)

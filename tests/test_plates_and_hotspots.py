@@ -14,6 +14,7 @@ import pytest
 from scipy.constants import epsilon_0
 
 from fieldsection import BuilderGeometry, Case, Material, MeshSettings, analyse, lookup_material
+from fieldsection.case import SINGLE_MESH
 
 W, D, V = 10e-3, 1e-3, 1000.0
 
@@ -44,7 +45,7 @@ def test_single_slab_is_exact(tmp_path):
     for order in (1, 2):
         case = Case("plates", BuilderGeometry(plates_builder([("gap", 1.0)]), 1e-3), {"gap": ptfe},
                     {"top": V, "bottom": 0.0}, outer_boundary="insulated", hotspot_fraction=0.05,
-                    mesh=MeshSettings(element_order=order))
+                    mesh=MeshSettings(element_order=order), refinement=SINGLE_MESH)
         result = analyse(case)
         c_ideal = epsilon_0 * ptfe.relative_permittivity * W / D
         assert result.capacitance.two_level.from_energy == pytest.approx(c_ideal, rel=1e-9)
@@ -62,7 +63,7 @@ def test_air_gap_in_series_with_solid_is_flagged():
     solid = Material("test solid", 4.0, 20e6)
     case = Case("stack", BuilderGeometry(plates_builder([("solid", 2.0), ("air_gap", 1.0)]), 1e-3),
                 {"solid": solid, "air_gap": air}, {"top": V, "bottom": 0.0}, outer_boundary="insulated",
-                hotspot_fraction=0.2)
+                hotspot_fraction=0.2, refinement=SINGLE_MESH)
     result = analyse(case)
     # D continuous: E_air = V / (d_air + d_solid eps_air / eps_solid)
     e_air = V / (1e-3 + 2e-3 * air.relative_permittivity / 4.0)
@@ -93,7 +94,7 @@ def test_builder_without_labels_is_refused():
         geom.add_physical(poly.surface, "gap")
         raise ValueError("typo in my builder")
 
-    case = Case("broken", BuilderGeometry(build, 1e-3), {"gap": lookup_material("air")}, {"gap_edge": 1.0})
+    case = Case("broken", BuilderGeometry(build, 1e-3), {"gap": lookup_material("air")}, {"gap_edge": 1.0}, refinement=SINGLE_MESH)
     with pytest.raises(FieldSectionError, match="builder failed: ValueError: typo in my builder"):
         analyse(case)
 
@@ -103,7 +104,7 @@ def test_surfaces_that_touch_without_sharing_nodes_are_refused():
 
     air = lookup_material("air")
     case = Case("seam", BuilderGeometry(plates_builder([("solid", 2.0), ("air_gap", 1.0)], share_interfaces=False), 1e-3),
-                {"solid": air, "air_gap": air}, {"top": V, "bottom": 0.0}, outer_boundary="insulated")
+                {"solid": air, "air_gap": air}, {"top": V, "bottom": 0.0}, outer_boundary="insulated", refinement=SINGLE_MESH)
     with pytest.raises(FieldSectionError, match="'solid' and 'air_gap' touch near .* without sharing mesh nodes"):
         analyse(case)
 
@@ -138,7 +139,7 @@ def test_triple_points_of_layers_parallel_to_the_field():
     # where the interface meets the plates (elementary; layers in parallel)
     case = Case("parallel", BuilderGeometry(side_by_side_builder, 1e-3),
                 {"solid": Material("test solid", 4.0, 20e6), "air_gap": lookup_material("air")},
-                {"top": V, "bottom": 0.0}, outer_boundary="insulated")
+                {"top": V, "bottom": 0.0}, outer_boundary="insulated", refinement=SINGLE_MESH)
     points = analyse(case).hotspots.triple_points
     assert sorted((p.electrode, round(p.location[0] * 1e3, 6), round(p.location[1] * 1e3, 6)) for p in points) == [
         ("bottom", 5.0, 0.0), ("top", 5.0, 1.0)]

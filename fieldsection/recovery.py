@@ -1,0 +1,153 @@
+"""Field recovery and the a posteriori error indicator.
+
+Recovered field E*: the L2 projection of the finite-element field E_h = -grad u_h onto continuous
+piecewise polynomials of the solution's own order, continuous inside each region and free to jump
+across region boundaries (there the normal component of E jumps with the permittivity).
+
+Error indicator (Zienkiewicz & Zhu, "A simple error estimator and adaptive procedure for practical
+engineering analysis", Int. J. Numer. Meth. Eng. 24, 1987): per element
+
+    eta_K^2 = integral over K of eps |E* - E_h|^2,
+
+the energy of the difference between the recovered and the computed field (with the model's
+weights: 2 pi r for a body of revolution). The sum over elements estimates the energy-norm error
+of the solution, so (eta / ||u||_E)^2 estimates the relative error of the capacitance.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+from skfem import Basis, BilinearForm, ElementDG, LinearForm
+
+from .errors import SolverError
+from .problem import weighted_permittivity
+from .solve import Solution
+
+
+@dataclass(frozen=True)
+class Recovery:
+    """Recovered field at element vertices and the error indicators per element."""
+
+    E: np.ndarray  # V/m, (nelements, 3, 2): E* at each element's vertices, from that element's region
+    indicator: np.ndarray  # eta_K^2 per element for the case's potential, J/m (J for a body of revolution)
+    energy_norm_squared: float  # u^T K u = 2 x the stored energy, for the case's potential
+    refinement_indicator: np.ndarray  # sum over the case and every unit solution of eta_K^2 / ||u||_E^2
+
+    @property
+    def estimated_error(self) -> float:
+        """Relative energy-norm error estimate of the case's solution, eta / ||u||_E."""
+        return float(np.sqrt(self.indicator.sum() / self.energy_norm_squared)) if self.energy_norm_squared > 0 else 0.0
+
+    @property
+    def E_magnitude(self) -> np.ndarray:
+        return np.hypot(self.E[..., 0], self.E[..., 1])
+
+    def peak_search_field(self, element_E_magnitude: np.ndarray, order: int) -> np.ndarray:
+        """|E| at element vertices for peak and hotspot search, (nelements, 3).
+
+        The recovered field, except for linear elements: there the nodal average at a boundary vertex
+        mixes elements whose centres lie inside, and can read low next to a convex conductor, so the
+        larger of it and the element's own (constant) field is taken, on the safe side.
+        """
+        if order == 1:
+            return np.maximum(self.E_magnitude, element_E_magnitude)
+        return self.E_magnitude
+
+
+#: largest recovery space factorised directly; above it, CG (memory stays linear in the mesh)
+DIRECT_MASS_LIMIT = 300_000
+
+
+@BilinearForm
+def _mass(u, v, w):
+    return u * v
+
+
+@LinearForm
+def _load(v, w):
+    return w.f * v
+
+
+def _values(basis: Basis, coefficients: np.ndarray) -> np.ndarray:
+    """sum_j c_j phi_j at the quadrature points, (nelements, nqp) (skfem's interpolate re-splits every call)."""
+    dofs = basis.element_dofs
+    return sum(coefficients[dofs[j]][:, None] * np.asarray(basis.basis[j][0]) for j in range(dofs.shape[0]))
+
+
+def _gradient(basis: Basis, coefficients: np.ndarray) -> np.ndarray:
+    """grad of sum_j c_j phi_j at the quadrature points, (2, nelements, nqp)."""
+    dofs = basis.element_dofs
+    return sum(coefficients[dofs[j]][None, :, None] * basis.basis[j][0].grad for j in range(dofs.shape[0]))
+
+
+class _Projector:
+    """L2 projection of fields onto the region-wise continuous space, set up once per mesh."""
+
+    def __init__(self, solution: Solution):
+        problem = solution.problem
+        self.problem = problem
+        basis = problem.basis
+        section = problem.section
+        # region-wise continuous space = element-local (DG) DOFs glued wherever they share a global
+        # DOF and a region; one sparse gluing matrix, no loop over regions
+        self.local = Basis(basis.mesh, ElementDG(basis.elem), quadrature=(basis.X, basis.W))
+        keys = basis.element_dofs.astype(np.int64) * len(section.region_names) + section.region_of_element[None, :]
+        _, glued = np.unique(keys, return_inverse=True)
+        self.glued = glued.reshape(keys.shape)
+        self.glue = sp.csr_matrix((np.ones(self.glued.size), (self.local.element_dofs.ravel(), self.glued.ravel())),
+                                  shape=(self.local.N, int(self.glued.max()) + 1))
+        mass = (self.glue.T @ _mass.assemble(self.local) @ self.glue).tocsr()
+        if basis.elem.maxdeg == 1:
+            # linear elements: the lumped (row-sum) mass, i.e. area-weighted averaging at the nodes,
+            # Zienkiewicz & Zhu's original recovery; no solve at all
+            lumped = np.asarray(mass.sum(axis=1)).ravel()
+            self._solve = lambda rhs: rhs / lumped
+        elif mass.shape[0] <= DIRECT_MASS_LIMIT:
+            factor = spla.splu(mass.tocsc(), permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
+                               options={"SymmetricMode": True})
+            self._solve = factor.solve
+        else:  # large: CG, as a diagonally scaled mass matrix is well conditioned on any shape-regular
+            # mesh (Wathen, IMA J. Numer. Anal. 7, 1987)
+            jacobi = sp.diags(1.0 / mass.diagonal())
+
+            def iterate(rhs: np.ndarray) -> np.ndarray:
+                values, info = spla.cg(mass, rhs, M=jacobi, rtol=1e-10, atol=0.0, maxiter=2000)
+                if info != 0:
+                    raise SolverError(f"the field recovery did not converge (CG status {info}); report this as a bug")
+                return values
+            self._solve = iterate
+        eps = weighted_permittivity(basis, section, problem.relative_permittivity, problem.axisymmetric)
+        self.eps_dx = np.broadcast_to(eps, basis.dx.shape) * basis.dx
+
+    def __call__(self, potential: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
+        """(E* at element vertices (nelements, 3, 2), eta_K^2 per element, ||u||_E^2) for one potential."""
+        problem = self.problem
+        E_h = -_gradient(problem.basis, potential)  # (2, nelements, nqp)
+        E_h[:, ~problem.dielectric] = 0.0  # meshed conductors carry no field
+        recovered = np.array([self._solve(self.glue.T @ _load.assemble(self.local, f=component))
+                              for component in E_h])  # (2, glued DOFs)
+        # Lagrange elements number their three vertex DOFs first
+        E_vertices = np.moveaxis(recovered[:, self.glued[:3]], 0, -1).transpose(1, 0, 2)
+        E_star = np.array([_values(self.local, self.glue @ c) for c in recovered])
+        indicator = (((E_star - E_h) ** 2).sum(axis=0) * self.eps_dx).sum(axis=1)
+        indicator[~problem.dielectric] = 0.0
+        return E_vertices, indicator, float(potential @ (problem.stiffness @ potential))
+
+
+def recover_field(solution: Solution, for_refinement: bool = True) -> Recovery:
+    """E* and the indicator for the case's potential. With ``for_refinement`` the refinement indicator
+    adds every unit solution, so the next mesh also serves each entry of the capacitance matrix;
+    without, it is the case's own."""
+    project = _Projector(solution)
+    E, indicator, norm = project(solution.potential)
+    combined = indicator / norm if norm > 0 else np.zeros_like(indicator)
+    units = np.column_stack([solution.unit_potentials, solution.unit_charges]).T if for_refinement else []
+    for unit in units:
+        _, unit_indicator, unit_norm = project(unit)
+        if unit_norm > 0:
+            combined = combined + unit_indicator / unit_norm
+    return Recovery(E, indicator, norm, combined)
