@@ -100,6 +100,18 @@ def test_gmsh_syntax_error_names_the_line(tmp_path, capsys):
         ('top = "1 kV"', 'top = "1 kV"\ntop = "2 kV"', r"line 10.*\[top = \"2 kV\"\].*exactly one potential"),
         ('top = "1 kV"', 'top = "1 mm"', r"electrodes\.top: '1 mm' is not a voltage"),
         ('outer = "insulated"', 'outer = "earthed"', r"boundary\.outer = 'earthed'"),
+        ('outer = "insulated"', 'outer = "insulated"\n[refinement]\ncapacitance_tolerance = 2.0',
+         r"refinement\.capacitance_tolerance = 2\.0: a relative change between passes, in \(0, 1\)"),
+        ('outer = "insulated"', 'outer = "insulated"\n[refinement]\nmax_dofs = "lots"',
+         r"refinement\.max_dofs = 'lots': must be a whole number"),
+        ('outer = "insulated"', 'outer = "insulated"\n[refinement]\nadaptive = "yes"',
+         r"refinement\.adaptive = 'yes': must be true or false"),
+        ('outer = "insulated"', 'outer = "insulated"\n[refinement]\nmax_passes = 0',
+         r"refinement\.max_passes = 0: a whole number of at least 1"),
+        ('outer = "insulated"', 'outer = "insulated"\n[refinement]\ntolerance = 0.01',
+         r"unknown key 'tolerance'; allowed keys: adaptive, capacitance_tolerance"),
+        ('outer = "insulated"', 'outer = "insulated"\n[mesh]\nelement_order = 4',
+         r"mesh\.element_order = 4: use one of \(1, 2, 3\)"),
     ],
 )
 def test_case_file_errors(tmp_path, capsys, old, new, expected):
