@@ -88,9 +88,21 @@ def _summary(result, folder: Path) -> None:
         for i in range(len(names)):
             for j in range(i + 1, len(names)):
                 print(f"mutual capacitance {names[i]} | {names[j]}: {cap.mutual[i, j] * 1e12:.6g} pF/m")
+    if result.passes:
+        print(f"refinement: {len(result.passes)} pass(es), {result.passes[-1].ndofs} DOFs; {result.stop_reason}")
+    certificates = result.certificates.regions if result.certificates else {}
     for peak in result.hotspots.region_peaks:
         share = "" if peak.utilisation is None else f", {100 * peak.utilisation:.1f} % of strength"
-        print(f"peak |E| in {peak.region} ({peak.material}): {peak.peak_E * 1e-6:.4g} kV/mm{share}")
+        cert = certificates.get(peak.region)
+        if cert is not None and not cert.is_peak_field:
+            theory = "" if cert.theory_exponent is None else f", corner theory {cert.theory_exponent:.2f}"
+            growth = "?" if cert.measured_exponent is None else f"{cert.measured_exponent:.2f}"
+            print(f"peak |E| in {peak.region} ({peak.material}): singular at a sharp edge (grows as h^{growth}"
+                  f"{theory}); {peak.peak_E * 1e-6:.4g} kV/mm{share} on this mesh is not a peak field")
+            continue
+        status = "" if cert is None else f" [{cert.status}" + (
+            f", ±{cert.relative_error:.1e}]" if cert.relative_error is not None else "]")
+        print(f"peak |E| in {peak.region} ({peak.material}): {peak.peak_E * 1e-6:.4g} kV/mm{share}{status}")
     print(f"hotspots at >= {100 * result.case.hotspot_fraction:.0f} % of strength: {len(result.hotspots.hotspots)}")
     print("a design aid, not a certification: margins and partial-discharge tests remain the designer's duty")
 

@@ -123,31 +123,62 @@ class _Projector:
         eps = weighted_permittivity(basis, section, problem.relative_permittivity, problem.axisymmetric)
         self.eps_dx = np.broadcast_to(eps, basis.dx.shape) * basis.dx
 
-    def __call__(self, potential: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
-        """(E* at element vertices (nelements, 3, 2), eta_K^2 per element, ||u||_E^2) for one potential."""
-        problem = self.problem
-        E_h = -_gradient(problem.basis, potential)  # (2, nelements, nqp)
-        E_h[:, ~problem.dielectric] = 0.0  # meshed conductors carry no field
-        recovered = np.array([self._solve(self.glue.T @ _load.assemble(self.local, f=component))
-                              for component in E_h])  # (2, glued DOFs)
-        # Lagrange elements number their three vertex DOFs first
-        E_vertices = np.moveaxis(recovered[:, self.glued[:3]], 0, -1).transpose(1, 0, 2)
-        E_star = np.array([_values(self.local, self.glue @ c) for c in recovered])
-        indicator = (((E_star - E_h) ** 2).sum(axis=0) * self.eps_dx).sum(axis=1)
-        indicator[~problem.dielectric] = 0.0
-        return E_vertices, indicator, float(potential @ (problem.stiffness @ potential))
+    def field(self, potential: np.ndarray) -> np.ndarray:
+        """E_h = -grad u at the quadrature points, (2, nelements, nqp); zero in meshed conductors."""
+        E_h = -_gradient(self.problem.basis, potential)
+        E_h[:, ~self.problem.dielectric] = 0.0
+        return E_h
+
+    def project(self, E_h: np.ndarray) -> np.ndarray:
+        """Coefficients (2, glued DOFs) of the recovered field."""
+        local = self.local
+        loads = []
+        for component in E_h:
+            weighted = component * local.dx
+            load = np.zeros(local.N)
+            for j in range(local.element_dofs.shape[0]):  # a few local basis functions
+                load[local.element_dofs[j]] = (weighted * np.asarray(local.basis[j][0])).sum(axis=1)
+            loads.append(self._solve(self.glue.T @ load))
+        return np.array(loads)
+
+    def vertex_values(self, coefficients: np.ndarray) -> np.ndarray:
+        """E* at element vertices (nelements, 3, 2); Lagrange elements number their vertex DOFs first."""
+        return np.moveaxis(coefficients[:, self.glued[:3]], 0, -1).transpose(1, 0, 2)
+
+    def indicator(self, coefficients: np.ndarray, E_h: np.ndarray) -> np.ndarray:
+        """eta_K^2 per element: the weighted energy of E* - E_h."""
+        E_star = np.array([_values(self.local, self.glue @ c) for c in coefficients])
+        eta2 = (((E_star - E_h) ** 2).sum(axis=0) * self.eps_dx).sum(axis=1)
+        eta2[~self.problem.dielectric] = 0.0
+        return eta2
 
 
 def recover_field(solution: Solution, for_refinement: bool = True) -> Recovery:
     """E* and the indicator for the case's potential. With ``for_refinement`` the refinement indicator
-    adds every unit solution, so the next mesh also serves each entry of the capacitance matrix;
-    without, it is the case's own."""
+    sums every unit solution's (each over its own energy), so the next mesh serves each entry of the
+    capacitance matrix; the case's recovered field is then their combination (the projection is linear)."""
+    problem = solution.problem
     project = _Projector(solution)
-    E, indicator, norm = project(solution.potential)
-    combined = indicator / norm if norm > 0 else np.zeros_like(indicator)
-    units = np.column_stack([solution.unit_potentials, solution.unit_charges]).T if for_refinement else []
-    for unit in units:
-        _, unit_indicator, unit_norm = project(unit)
+    u = solution.potential
+    norm = float(u @ (problem.stiffness @ u))
+    if not for_refinement:
+        E_h = project.field(u)
+        coefficients = project.project(E_h)
+        indicator = project.indicator(coefficients, E_h)
+        return Recovery(project.vertex_values(coefficients), indicator, norm, indicator / norm if norm > 0 else indicator)
+    units = np.column_stack([solution.unit_potentials, solution.unit_charges]).T
+    weights = np.concatenate([[c.potential for c in problem.fixed], [c.charge for c in problem.floating]])
+    combined = np.zeros(problem.section.mesh.nelements)
+    case_E_h = np.zeros(0)
+    case_coefficients = np.zeros(0)
+    for unit, weight in zip(units, weights):
+        E_h = project.field(unit)
+        coefficients = project.project(E_h)
+        unit_norm = float(unit @ (problem.stiffness @ unit))
         if unit_norm > 0:
-            combined = combined + unit_indicator / unit_norm
-    return Recovery(E, indicator, norm, combined)
+            combined += project.indicator(coefficients, E_h) / unit_norm
+        case_E_h = weight * E_h if case_E_h.size == 0 else case_E_h + weight * E_h
+        case_coefficients = weight * coefficients if case_coefficients.size == 0 else \
+            case_coefficients + weight * coefficients
+    return Recovery(project.vertex_values(case_coefficients), project.indicator(case_coefficients, case_E_h), norm,
+                    combined)
