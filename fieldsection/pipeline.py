@@ -14,7 +14,7 @@ from typing import Callable, Mapping
 import numpy as np
 from scipy.spatial import cKDTree
 
-from .adapt import PassRecord, RegionVertexField, region_vertex_fields, wanted_sizes
+from .adapt import PassRecord, region_vertex_fields, wanted_sizes
 from .capacitance import CapacitanceResult, compute_capacitance
 from .case import Case
 from .certificate import SINGULAR, PeakCertificate, certify
@@ -166,13 +166,17 @@ def _one_pass(case: Case, size_field: SizeField | None, stage) -> _Pass:
 
 
 def _settled(case: Case, passes: list[_Pass]) -> bool:
-    """Capacitance settled, and every region's peak settled or found singular."""
+    """Capacitance settled, and every peak (per region, per hotspot, at each triple point) settled or
+    found singular."""
     before, now = passes[-2].record, passes[-1].record
     scale = np.abs(np.diag(now.capacitance)).max()
     if np.abs(now.capacitance - before.capacitance).max() > case.refinement.capacitance_tolerance * scale:
         return False
-    regional = _certify_regions(case, passes)
-    return all(c.status != "not converged" for c in regional.values())
+    last = passes[-1]
+    magnitude = last.recovery.peak_search_field(last.fields.E_magnitude, last.problem.element_order)
+    certificates = _certify_all(case, passes, find_hotspots(last.problem, magnitude, case.hotspot_fraction))
+    every = [*certificates.regions.values(), *certificates.hotspots, *certificates.triple_points]
+    return all(c.status != "not converged" for c in every)
 
 
 def _certify_regions(case: Case, passes: list[_Pass]) -> dict[str, PeakCertificate]:
@@ -208,15 +212,14 @@ def _certificate(case: Case, passes: list[_Pass], tree: cKDTree, region: str, po
 
 
 def _track(passes: list[_Pass], region: str, point: np.ndarray) -> tuple[list[float], list[float]]:
-    """The peak of ``region`` near ``point`` in every pass: within the first pass's local element size."""
-    first: RegionVertexField = passes[0].record.vertex_fields[region]
-    _, nearest = cKDTree(first.points).query(point)
-    radius = 1.5 * float(first.sizes[nearest])
+    """The peak of ``region`` near ``point`` in every pass: within 1.5 local element sizes of it (the
+    sizes of that pass, so that a thin feature's other corner is not taken for this one)."""
     values, sizes = [], []
     for p in passes:
-        found = p.record.vertex_fields[region].peak_near(point, radius)
-        if found is None:
-            found = p.record.vertex_fields[region].peak_near(point, np.inf)
+        field = p.record.vertex_fields[region]
+        _, nearest = cKDTree(field.points).query(point)
+        found = field.peak_near(point, max(1.5 * float(field.sizes[nearest]),
+                                           float(np.hypot(*(field.points[nearest] - point))) * (1 + 1e-9)))
         values.append(found[0])
         sizes.append(found[1])
     return values, sizes
