@@ -103,7 +103,7 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
         if passes and current.problem.ndofs > settings.max_dofs:
             # gmsh made more elements than asked: ask for fewer, or stop at the budget
             growth *= 0.9 * settings.max_dofs / current.problem.ndofs
-            if growth < 1.15:
+            if growth * overshoot < 1.15:
                 stop_reason = f"DOF budget of {settings.max_dofs} spent"
                 break
             size_field = stage("refine", lambda: wanted_sizes(passes[-1].section,
