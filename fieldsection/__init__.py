@@ -2,7 +2,7 @@
 
 __version__ = "0.1.0"
 
-from .case import BuilderGeometry, Case, MeshSettings, ScriptGeometry, load_case  # noqa: E402
+from .case import SINGLE_MESH, BuilderGeometry, Case, MeshSettings, Refinement, ScriptGeometry, load_case  # noqa: E402
 from .errors import FieldSectionError  # noqa: E402
 from .materials import Material, lookup_material  # noqa: E402
 from .pipeline import SectionResult, analyse  # noqa: E402
@@ -13,6 +13,8 @@ __all__ = [
     "FieldSectionError",
     "Material",
     "MeshSettings",
+    "Refinement",
+    "SINGLE_MESH",
     "ScriptGeometry",
     "SectionResult",
     "analyse",

@@ -65,6 +65,14 @@ def _certified(cert, value: float, strength: float | None) -> dict[str, Any]:
         out["mesh_dependent_E_kV_per_mm"] = value * 1e-6
         out["mesh_dependent_fraction_of_strength"] = share
         out["advised_edge_radius_mm"] = _num(cert.advised_radius, 1e3)
+        if cert.advised_radius is not None:
+            out["advice"] = (f"round the edge: a radius of about {cert.advised_radius * 1e3:.2g} mm or more brings the "
+                             "local field to the hotspot threshold (a scaling estimate; draw it and re-run)")
+        elif strength is not None:
+            out["advice"] = ("no edge radius alone helps: the field is above the hotspot threshold even away from "
+                             "the corner; lower the stress (more or better insulation, no gas gap, lower voltage)")
+        else:
+            out["advice"] = "round the edge; no dielectric strength is known to size the radius"
     return out
 
 
