@@ -42,6 +42,8 @@ def wanted_sizes(section: SectionMesh, indicator: np.ndarray, order: int, growth
     power = 1.0 / (order + 1)
     weight = eta2 ** power  # = (h_K / h_new_K)^2 up to the common target
     active = weight > 0
+    if not active.any():  # an exact solution: refine uniformly
+        weight, active = np.where(drawn, 1.0, 0.0), drawn
 
     def steps(target: float) -> np.ndarray:
         step = np.full(h.size, COARSEST_STEP)

@@ -47,6 +47,8 @@ class RawMesh:
     surface_groups: Mapping[str, np.ndarray]
     curve_groups: Mapping[str, np.ndarray]
     warnings: tuple[str, ...] = field(default=())
+    #: nodes at the geometry's corners: ends of open curves and points where two or more curves meet
+    corner_nodes: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
 
     def __post_init__(self) -> None:
         if self.points.ndim != 2 or self.points.shape[1] != 2:
@@ -414,6 +416,18 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
                     continue
                 segments.append(index_of[enodes.astype(np.int64)].reshape(-1, per)[:, :2])
         curve_groups[name] = np.concatenate(segments) if segments else np.zeros((0, 2), dtype=np.int64)
+    corner_tags = []
+    for _, point in gmsh.model.getEntities(0):  # the geometry's points: few
+        curves, _ = gmsh.model.getAdjacencies(0, point)
+        if len(set(curves)) == 1:  # one curve: a corner only where an open curve ends (not a circle's seam)
+            ends = {tag for _, tag in gmsh.model.getBoundary([(1, int(curves[0]))], False, False, False)}
+            if len(ends) < 2:
+                continue
+        elif len(set(curves)) == 0:
+            continue
+        tags, _, _ = gmsh.model.mesh.getNodes(0, point)
+        corner_tags.extend(int(t) for t in tags)
+    corner_nodes = index_of[np.asarray(corner_tags, dtype=np.int64)] if corner_tags else np.zeros(0, dtype=np.int64)
     for name, rows in {**surface_groups, **curve_groups}.items():
         if len(rows) == 0:
             raise MeshError(f"physical group {name!r} has no mesh elements; check which entities it lists")
@@ -426,10 +440,11 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
         coords = coords[used]
         triangles = remap[triangles]
         curve_groups = {k: remap[v] for k, v in curve_groups.items()}
+        corner_nodes = remap[corner_nodes]
         for name, segs in curve_groups.items():
             if (segs < 0).any():
                 raise MeshError(f"physical curve {name!r} has nodes that lie on no triangle; it must bound a surface")
     points = np.ascontiguousarray(coords[:, :2] * scale, dtype=np.float64)
     if not math.isfinite(float(points.sum())):
         raise MeshError("gmsh returned non-finite node coordinates")
-    return RawMesh(points, triangles, surface_groups, curve_groups, warnings)
+    return RawMesh(points, triangles, surface_groups, curve_groups, warnings, corner_nodes[corner_nodes >= 0])

@@ -35,6 +35,7 @@ class SectionMesh:
     curve_facets: Mapping[str, np.ndarray]
     gmsh_warnings: tuple[str, ...] = field(default=())
     open_circle: "OpenCircle | None" = None
+    corner_vertices: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # geometry corners
 
     @property
     def exterior(self) -> np.ndarray:
@@ -203,7 +204,7 @@ def add_open_space(raw: RawMesh, circle: OpenCircle) -> RawMesh:
                 curve_groups[name] = np.concatenate([curve_groups[name], spoke])
     rows = np.arange(len(raw.triangles), len(raw.triangles) + len(triangles))
     return RawMesh(points, np.concatenate([raw.triangles, triangles]), {**raw.surface_groups, EXTERIOR: rows},
-                   curve_groups, raw.warnings)
+                   curve_groups, raw.warnings, raw.corner_nodes)
 
 
 def _spokes(points: np.ndarray, exterior: np.ndarray, circle: OpenCircle, n_old: int) -> list[np.ndarray]:
@@ -271,7 +272,9 @@ def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> S
     _check_quality(mesh)
     drawn = region_of_element != (names.index(EXTERIOR) if EXTERIOR in names else -1)
     _check_conforming(base, names, region_of_element, drawn)
-    return SectionMesh(mesh, names, region_of_element, curve_facets, raw.warnings, open_circle)
+    geometry_corners = remap[raw.corner_nodes]
+    return SectionMesh(mesh, names, region_of_element, curve_facets, raw.warnings, open_circle,
+                       np.unique(geometry_corners[geometry_corners >= 0]))
 
 
 def triangle_areas(mesh: MeshTri1 | MeshTri2) -> np.ndarray:

@@ -166,11 +166,14 @@ def _one_pass(case: Case, size_field: SizeField | None, stage) -> _Pass:
 
 
 def _settled(case: Case, passes: list[_Pass]) -> bool:
-    """Capacitance settled, and every peak (per region, per hotspot, at each triple point) settled or
-    found singular."""
+    """Capacitance settled (and small by the indicator's own estimate), and every peak (per region, per
+    hotspot, at each triple point) settled or found singular."""
     before, now = passes[-2].record, passes[-1].record
     scale = np.abs(np.diag(now.capacitance)).max()
-    if np.abs(now.capacitance - before.capacitance).max() > case.refinement.capacitance_tolerance * scale:
+    tolerance = case.refinement.capacitance_tolerance
+    if np.abs(now.capacitance - before.capacitance).max() > tolerance * scale:
+        return False
+    if now.estimated_error ** 2 > tolerance:  # (energy-norm error)^2 ~ relative error of the capacitance
         return False
     last = passes[-1]
     magnitude = last.recovery.peak_search_field(last.fields.E_magnitude, last.problem.element_order)
@@ -196,19 +199,38 @@ def _certify_regions(case: Case, passes: list[_Pass]) -> dict[str, PeakCertifica
 def _certificate(case: Case, passes: list[_Pass], tree: cKDTree, region: str, point: np.ndarray,
                  values: list[float], sizes: list[float]) -> PeakCertificate:
     last = passes[-1]
-    # the corner a peak belongs to may be a vertex or two away from the largest value
-    near = tree.query_ball_point(point, 2.5 * sizes[-1])
-    theories = [t for t in (corner_theory(last.problem, int(v)) for v in near) if t is not None]
-    theory = min(theories, key=lambda t: t.exponent, default=None)
+    section = last.section
+    # the geometry corner a peak belongs to may be a vertex or two away from the largest value
+    corners = section.corner_vertices
+    near = [v for v in tree.query_ball_point(point, 2.5 * sizes[-1]) if v in set(corners.tolist())] \
+        if corners.size else []
+    theories = [(t, v) for t, v in ((corner_theory(last.problem, int(v)), v) for v in near) if t is not None]
+    theory, corner = min(theories, key=lambda item: item[0].exponent, default=(None, None))
     strength = last.problem.material_of_region[region].dielectric_strength
     allowed = None if strength is None else case.hotspot_fraction * strength
     single_mesh_error = None
     if len(passes) == 1:  # one mesh: the gap between the element's own and the recovered field
-        raw = region_vertex_fields(last.section, last.fields.E_magnitude, [region])[region]
-        own = raw.peak_near(point, 1e-9 * float(np.ptp(last.section.mesh.p)))
+        raw = region_vertex_fields(section, last.fields.E_magnitude, [region])[region]
+        own = raw.peak_near(point, 1e-9 * float(np.ptp(section.mesh.p)))
         if own is not None and values[-1] > 0:
             single_mesh_error = abs(own[0] - values[-1]) / values[-1]
-    return certify(values, sizes, theory, case.refinement.field_tolerance, allowed, single_mesh_error)
+    largest = max(float(v.values.max()) for v in last.record.vertex_fields.values())
+    constant = None
+    if theory is not None and theory.singular_enough:
+        constant = _corner_constant(last.record.vertex_fields[region], section.mesh.p[:, corner], sizes[-1],
+                                    theory.exponent)
+    return certify(values, sizes, theory, case.refinement.field_tolerance, allowed, single_mesh_error,
+                   negligible=1e-9 * largest, corner_constant=constant)
+
+
+def _corner_constant(field, corner: np.ndarray, size: float, exponent: float) -> float | None:
+    """c in |E| = c r^s around a corner, from the vertices 4 to 16 element sizes away (the largest over
+    directions); None if too few vertices lie there."""
+    r = np.hypot(*(field.points - corner).T)
+    ring = (r >= 4 * size) & (r <= 16 * size)
+    if ring.sum() < 5:
+        return None
+    return float((field.values[ring] * r[ring] ** -exponent).max())
 
 
 def _track(passes: list[_Pass], region: str, point: np.ndarray) -> tuple[list[float], list[float]]:

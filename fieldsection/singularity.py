@@ -20,6 +20,8 @@ from scipy.optimize import brentq
 from .problem import AssembledProblem
 
 FIXED, INSULATED = "fixed", "insulated"  # the two kinds of face that bound a field sector
+#: an exponent below this is a singularity worth reporting (-0.05: a 171-degree conductor edge)
+SINGULAR_EXPONENT = -0.05
 
 
 @dataclass(frozen=True)
@@ -34,34 +36,43 @@ class CornerTheory:
     def singular(self) -> bool:
         return self.exponent < -1e-6
 
+    @property
+    def singular_enough(self) -> bool:
+        """Singular beyond the slight re-entrance of a curve drawn with few segments."""
+        return self.exponent < SINGULAR_EXPONENT
+
 
 def wedge_eigenvalue(wedges: list[tuple[float, float]], start: str, end: str) -> float:
     """Smallest lambda > 0 for wedges [(angle rad, eps_r), ...] in order, bounded by faces ``start``, ``end``."""
+    grid = np.linspace(1e-4, 4.0, 4001)
 
-    def end_value(lam: float) -> float:
-        state = np.array([0.0, 1.0]) if start == FIXED else np.array([1.0, 0.0])  # (f, eps f' / lambda)
+    def end_values(lam: np.ndarray) -> np.ndarray:
+        # state (f, eps f' / lambda) carried across each wedge by its 2 x 2 transfer matrix
+        f = np.zeros_like(lam) if start == FIXED else np.ones_like(lam)
+        g = np.ones_like(lam) if start == FIXED else np.zeros_like(lam)
         for angle, eps in wedges:
             c, s = np.cos(lam * angle), np.sin(lam * angle)
-            state = np.array([[c, s / eps], [-eps * s, c]]) @ state
-        return state[0] if end == FIXED else state[1]
+            f, g = c * f + s / eps * g, -eps * s * f + c * g
+        return f if end == FIXED else g
 
-    grid = np.linspace(1e-4, 4.0, 4001)
-    values = np.array([end_value(x) for x in grid])
+    values = end_values(grid)
     change = np.flatnonzero(np.sign(values[:-1]) * np.sign(values[1:]) <= 0)
     if change.size == 0:
         return float("inf")
     k = change[0]
     if values[k] == 0:
         return float(grid[k])
-    return float(brentq(end_value, grid[k], grid[k + 1], xtol=1e-12))
+    return float(brentq(lambda x: float(end_values(np.array([x]))[0]), grid[k], grid[k + 1], xtol=1e-12))
 
 
 def corner_theory(problem: AssembledProblem, vertex: int) -> CornerTheory | None:
     """The field exponent at mesh vertex ``vertex``; None where no conductor or boundary face meets it
     (a corner between dielectrics alone, whose exponent needs the full periodic eigenproblem)."""
     mesh = problem.section.mesh
-    elements = np.flatnonzero((mesh.t == vertex).any(axis=0))
     centre = mesh.p[:, vertex]
+    if problem.axisymmetric and abs(centre[0]) <= 1e-9 * np.ptp(mesh.p[0]):
+        return None  # on the axis a corner is the tip of a cone, not a wedge
+    elements = np.flatnonzero((mesh.t == vertex).any(axis=0) & ~problem.section.exterior)
     facet_of = _facets_at(mesh, vertex)
     curved = problem.section.curved
     items = []  # (start angle, opening, first other vertex, second other vertex, element), counter-clockwise

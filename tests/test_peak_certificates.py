@@ -41,16 +41,16 @@ def test_adaptive_coaxial_line_to_one_part_per_million_within_20000_dofs(order):
     er = 2.25
     result = solve_script("coaxial.geo", {"insulation": Material("test", er, None)}, {"inner": V, "outer": 0.0},
                           order=order,
-                          refinement=Refinement(capacitance_tolerance=1e-7, field_tolerance=1e-4, max_dofs=20_000))
+                          refinement=Refinement(capacitance_tolerance=1e-7, field_tolerance=1e-3, max_dofs=20_000))
     exact_c = 2 * math.pi * epsilon_0 * er / math.log(B / A)
     assert all(p.ndofs <= 20_000 for p in result.passes) and len(result.passes) >= 2
     assert result.capacitance.two_level.from_energy == pytest.approx(exact_c, rel=1e-6)
     # the peak sits on the inner conductor, a smooth surface: it converges, and to within 0.1 %
     peak = result.certificates.regions["insulation"]
-    assert peak.status != SINGULAR and peak.is_peak_field
+    assert peak.status == CONVERGED and peak.is_peak_field and peak.relative_error <= 1e-3
     assert peak.value == pytest.approx(V / (A * math.log(B / A)), rel=1e-3)
     assert math.hypot(*result.hotspots.region_peaks[0].location) == pytest.approx(A, rel=1e-6)
-    assert abs(peak.theory_exponent) < 1e-3 and peak.field_angle_deg == pytest.approx(180.0, abs=0.1)
+    assert peak.theory_exponent is None  # no corner of the geometry there
     # the indicator's estimate falls pass by pass
     errors = [p.estimated_error for p in result.passes]
     assert errors[-1] < 0.5 * errors[0]
@@ -156,3 +156,60 @@ def test_round_wire_over_ground_is_screened_for_corona():
     assert check.onset_field == pytest.approx(peek_onset_field(a), rel=1e-9)
     assert check.margin == pytest.approx(peek_onset_field(a) / surface, rel=5e-3)
     assert check.margin < 1  # 12 kV on a 1 mm wire 4 mm above ground is in corona (6.4 vs 5.86 kV/mm)
+
+
+def test_two_dielectric_wedge_at_a_conductor():
+    # a 90-degree wedge of eps_r 4 beside a 180-degree wedge of eps_r 1 between conductor faces (a triple
+    # point on a conductor corner). Separating variables in each wedge, f = A sin(lambda theta) and
+    # B sin(lambda (alpha - theta)), continuity of f and eps f' gives eps_2 tan(lambda alpha_1) +
+    # eps_1 tan(lambda alpha_2) = 0 (elementary); its smallest root is lambda = 0.79517
+    from scipy.optimize import brentq
+
+    def closed_form(lam):
+        return 1.0 * math.tan(lam * math.pi / 2) + 4.0 * math.tan(lam * math.pi)
+
+    root = brentq(closed_form, 0.51, 0.99)
+    lam = wedge_eigenvalue([(math.pi / 2, 4.0), (math.pi, 1.0)], FIXED, FIXED)
+    assert lam == pytest.approx(root, abs=1e-9)
+    assert lam == pytest.approx(0.79517, abs=1e-5)
+    # between 2/3 (all eps 1: a plain 270-degree corner) and 1: the solid softens the corner
+    assert 2 / 3 < lam < 1
+
+
+def test_a_smooth_peak_rising_to_its_limit_is_not_singular():
+    # E = 1 - 0.3 (h / h0)^2: a converging peak approached from below, steps shrinking by 4 each pass
+    sizes = [1e-3, 5e-4, 2.5e-4]
+    values = [1 - 0.3 * (h / 1e-3) ** 2 for h in sizes]
+    rising = certify(values, sizes, None, 1e-3, 1.0)
+    assert rising.status == "not converged" and rising.measured_exponent < -0.05
+    # at a corner the theory calls regular it is never singular, however it grows
+    from fieldsection.singularity import CornerTheory
+
+    flat = CornerTheory(exponent=0.0, field_angle=math.pi, n_materials=1)
+    assert certify([1.0, 1.5], sizes[:2], flat, 1e-3, 1.0).status == "not converged"
+    # a field of round-off size is a converged zero, not a singularity
+    assert certify([1e-7, 2e-7, 4e-7], sizes, None, 1e-3, None, negligible=1e-3).status == CONVERGED
+
+
+def test_adaptive_open_space_floating_and_axisymmetric_models():
+    # isolated sphere in open space (axisymmetric, Kelvin image): C = 4 pi eps0 a (Gauss's law)
+    sphere = analyse(Case("sphere", ScriptGeometry(GEOMETRIES / "sphere.geo", {"space_radius": 3.0}, 1e-3),
+                          {"gas": Material("vacuum", 1.0, None)}, {"sphere": 1000.0}, outer_boundary="open",
+                          model="axisymmetric", refinement=Refinement(max_dofs=30_000)))
+    assert sphere.capacitance.two_level.from_energy == pytest.approx(4 * math.pi * epsilon_0 * 1e-3, rel=2e-4)
+    assert sphere.stop_reason.startswith("converged")
+    # uncharged floating shell between coaxial conductors: two coaxial capacitors in series
+    er, r1, r2 = 2.25, 1.8e-3, 1.9e-3
+    c1 = 2 * math.pi * epsilon_0 * er / math.log(r1 / A)
+    c2 = 2 * math.pi * epsilon_0 * er / math.log(B / r2)
+    dielectric = Material("test dielectric", er, None)
+    shell = analyse(Case("shell", ScriptGeometry(GEOMETRIES / "coaxial_floating_shell.geo", {}, 1e-3),
+                         {"inner_gap": dielectric, "outer_gap": dielectric}, {"inner": V, "outer": 0.0},
+                         floating={"shell": 0.0}, refinement=Refinement(max_dofs=40_000)))
+    assert shell.capacitance.two_level.from_energy == pytest.approx(c1 * c2 / (c1 + c2), rel=1e-5)
+    assert len(shell.passes) >= 2
+    # two wires in open space (planar inversion): C = pi eps0 / arccosh(D / 2a), D = 10 mm, a = 1 mm
+    wires = solve_script("two_wires.geo", {"air": Material("vacuum", 1.0, None)}, {"wire_a": 1.0, "wire_b": -1.0},
+                         outer="open", refinement=Refinement(max_dofs=40_000))
+    exact = math.pi * epsilon_0 / math.acosh(10.0 / 2.0)
+    assert wires.capacitance.two_level.from_energy == pytest.approx(exact, rel=1e-4)
