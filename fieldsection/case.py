@@ -11,7 +11,7 @@ The case file schema (documented in the README) is fieldsection's own::
     [boundary]      outer = "grounded" | "insulated" | "open"; [boundary.curves] name = "insulated"
     [symmetry]      copies = 2 (the model is half of the full section)
     [hotspots]      fraction = 0.5
-    [mesh]          size, near_electrodes, element_order, curved, [mesh.region_sizes]
+    [mesh]          size, near_electrodes, element_order, curved, refinements, [mesh.region_sizes]
 
 Everything here is validated without touching the geometry; names are checked against the
 geometry's physical groups in the mesh stage.
@@ -42,6 +42,7 @@ MODELS = {
     "axisymmetric": "a body of revolution about the y axis (x is the radius); results for the whole body",
 }
 ELEMENT_ORDERS = (1, 2)
+MAX_REFINEMENTS = 6  # each uniform refinement multiplies the element count by 4
 DEFAULT_HOTSPOT_FRACTION = 0.5
 
 
@@ -75,8 +76,15 @@ class MeshSettings:
     region_sizes: Mapping[str, float] = field(default_factory=dict)
     element_order: int = 2
     curved: bool = True  # second-order geometry: mid-edge nodes placed on arcs
+    refinements: int = 0  # mesh at 2**k times the sizes, then split every triangle into four, k times
 
     def __post_init__(self) -> None:
+        k = self.refinements
+        if isinstance(k, bool) or not isinstance(k, int) or not 0 <= k <= MAX_REFINEMENTS:
+            raise CaseFileError(
+                f"mesh.refinements = {k!r}: a whole number from 0 to {MAX_REFINEMENTS}, how many times every "
+                "triangle of a coarser mesh is split into four (each split halves the element size)"
+            )
         if self.element_order not in ELEMENT_ORDERS:
             raise CaseFileError(
                 f"mesh.element_order = {self.element_order!r}: use one of {ELEMENT_ORDERS} (2 is the default)"
@@ -321,7 +329,8 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
     _check_keys(hotspots, {"fraction", "gas_pressure"}, f"{where} [hotspots]")
     mesh_table = _table(data, "mesh", where)
     _check_keys(
-        mesh_table, {"size", "near_electrodes", "region_sizes", "element_order", "curved"}, f"{where} [mesh]"
+        mesh_table, {"size", "near_electrodes", "region_sizes", "element_order", "curved", "refinements"},
+        f"{where} [mesh]"
     )
 
     def optional_length(key: str) -> float | None:
@@ -336,6 +345,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         },
         element_order=_whole(mesh_table.get("element_order", 2), "mesh.element_order"),
         curved=_flag(mesh_table.get("curved", True), "mesh.curved"),
+        refinements=_whole(mesh_table.get("refinements", 0), "mesh.refinements"),
     )
     title = data.get("title", "")
     return Case(

@@ -325,8 +325,13 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
             f"Physical Surface(\"my_region\") = {{{loose[0]}}}; and map it in [regions] (or make it a hole)"
         )
     _apply_sizes(gmsh, settings, scale, surfaces, curves, electrode_names & (set(surfaces) | set(curves)))
+    if settings.refinements:  # mesh coarser by 2**k, then split each triangle into four, k times
+        gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**settings.refinements)
     try:
         gmsh.model.mesh.generate(2)
+        for _ in range(settings.refinements):
+            # gmsh places the new nodes of boundary edges on the geometry's curves, so arcs stay arcs
+            gmsh.model.mesh.refine()
         curved = settings.curved
         if curved:
             gmsh.model.mesh.setOrder(2)
