@@ -12,6 +12,7 @@ The case file schema (documented in the README) is fieldsection's own::
     [symmetry]      copies = 2 (the model is half of the full section)
     [hotspots]      fraction = 0.5
     [mesh]          size, near_electrodes, element_order, curved, refinements, [mesh.region_sizes]
+    [solver]        method = "auto" | "direct" | "iterative"
 
 Everything here is validated without touching the geometry; names are checked against the
 geometry's physical groups in the mesh stage.
@@ -44,6 +45,11 @@ MODELS = {
 ELEMENT_ORDERS = (1, 2)
 MAX_REFINEMENTS = 6  # each uniform refinement multiplies the element count by 4
 DEFAULT_HOTSPOT_FRACTION = 0.5
+SOLVER_METHODS = {
+    "auto": "chosen by the size of the system and the solvers installed",
+    "direct": "a sparse factorisation reused for every conductor (PARDISO if installed, else SuperLU)",
+    "iterative": "conjugate gradients with an algebraic-multigrid preconditioner (less memory on big models)",
+}
 
 
 @dataclass(frozen=True)
@@ -114,6 +120,7 @@ class Case:
     symmetry_copies: int = 1  # the model is 1/copies of the full section
     model: str = "planar"  # or "axisymmetric": x is the radius r >= 0, y the axis z
     gas_pressure: float = 101_325.0  # Pa, for the partial-discharge screening of gas regions
+    solver: str = "auto"  # linear solver: a key of SOLVER_METHODS
 
     def __post_init__(self) -> None:
         if not self.regions:
@@ -149,6 +156,8 @@ class Case:
         if not (math.isfinite(self.gas_pressure) and self.gas_pressure > 0):
             raise CaseFileError(f"hotspots.gas_pressure = {self.gas_pressure!r} Pa: must be a positive pressure, "
                                 "e.g. '1 atm' or '0.5 MPa'")
+        if self.solver not in SOLVER_METHODS:
+            raise CaseFileError(f"solver.method = {self.solver!r}: use one of {', '.join(map(repr, SOLVER_METHODS))}")
         if self.model not in MODELS:
             raise CaseFileError(f"geometry.model = {self.model!r}: use one of {', '.join(map(repr, MODELS))}")
         copies = self.symmetry_copies
@@ -178,7 +187,8 @@ class Case:
         return frozenset(self.electrodes) | frozenset(self.floating)
 
 
-_TOP_KEYS = {"title", "geometry", "regions", "materials", "electrodes", "boundary", "hotspots", "mesh", "symmetry"}
+_TOP_KEYS = {"title", "geometry", "regions", "materials", "electrodes", "boundary", "hotspots", "mesh", "symmetry",
+             "solver"}
 
 
 def _table(data: Mapping[str, Any], key: str, where: str) -> Mapping[str, Any]:
@@ -347,6 +357,8 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         curved=_flag(mesh_table.get("curved", True), "mesh.curved"),
         refinements=_whole(mesh_table.get("refinements", 0), "mesh.refinements"),
     )
+    solver_table = _table(data, "solver", where)
+    _check_keys(solver_table, {"method"}, f"{where} [solver]")
     title = data.get("title", "")
     return Case(
         name=path.stem,
@@ -363,6 +375,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         symmetry_copies=_whole(symmetry.get("copies", 1), "symmetry.copies"),
         model=model,
         gas_pressure=to_si(hotspots.get("gas_pressure", 101_325.0), "pressure", "hotspots.gas_pressure"),
+        solver=solver_table.get("method", "auto"),
     )
 
 
