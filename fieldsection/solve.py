@@ -68,6 +68,7 @@ class _Pardiso:
     name = "PARDISO"
 
     def __init__(self, matrix: sp.csc_matrix):
+        _point_pypardiso_at_mkl()
         import pypardiso  # optional: pip install "fieldsection[fast]"
 
         # a solver object of our own: pypardiso's module-level spsolve keeps a global factorisation
@@ -129,6 +130,22 @@ class _AmgCg:
 
     def close(self) -> None:
         self._preconditioner = None
+
+
+def _point_pypardiso_at_mkl() -> None:
+    """Name MKL's runtime library for pypardiso, which otherwise walks all of site-packages (~1 s)."""
+    import os
+    from importlib import metadata
+
+    if "PYPARDISO_MKL_RT" in os.environ:
+        return
+    try:
+        files = metadata.files("mkl") or []
+    except metadata.PackageNotFoundError:
+        return
+    runtime = sorted((f for f in files if f.name.startswith("libmkl_rt.so")), key=lambda f: len(f.name))
+    if runtime:
+        os.environ["PYPARDISO_MKL_RT"] = str(runtime[0].locate())
 
 
 _BACKENDS = {"PARDISO": _Pardiso, "SuperLU": _SuperLU, "AMG-CG": _AmgCg}
