@@ -50,9 +50,12 @@ class _SuperLU:
 
     def __init__(self, matrix: sp.csc_matrix):
         try:
-            # K is symmetric positive definite: symmetric ordering, no pivoting (10x faster than defaults)
-            self._lu = spla.splu(matrix, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
-                                 options={"SymmetricMode": True})
+            if matrix.shape[0] <= ITERATIVE_ABOVE:
+                # K is symmetric positive definite: symmetric ordering, no pivoting (faster than the defaults)
+                self._lu = spla.splu(matrix, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
+                                     options={"SymmetricMode": True})
+            else:  # minimum degree on A^T + A takes many minutes at a million unknowns: scipy's defaults
+                self._lu = spla.splu(matrix)
         except RuntimeError as exc:
             raise SolverError(f"the system is singular ({exc}); {_SINGULAR_HINT}") from None
         self.detail = f"LU nnz {self._lu.L.nnz + self._lu.U.nnz}"
@@ -285,10 +288,18 @@ def solve(problem: AssembledProblem, method: str = "auto") -> Solution:
     lifts[:, :len(fixed)] = conductor_indicator(problem, fixed)
     charges = np.zeros((len(floating), lifts.shape[1]))
     charges[:, len(fixed):] = np.eye(len(floating))
+    # The unit solutions of all fixed conductors sum to 1 everywhere (K annihilates constants and the
+    # floating conductors stay uncharged), so an iterative solver skips the last one's CG run.
+    solved = np.ones(lifts.shape[1], dtype=bool)
+    if system.solver_name == "AMG-CG" and len(fixed) > 1:
+        solved[len(fixed) - 1] = False
+    both = np.empty_like(lifts)
     try:
-        both = system.solve(lifts, charges)
+        both[:, solved] = system.solve(lifts[:, solved], charges[:, solved])
     finally:
         system.close()
+    if not solved.all():
+        both[:, len(fixed) - 1] = 1.0 - both[:, :len(fixed) - 1].sum(axis=1)
     unit, per_charge = both[:, :len(fixed)], both[:, len(fixed):]
     potentials = np.array([c.potential for c in fixed])
     net_charges = np.array([c.charge for c in floating])
