@@ -398,7 +398,7 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
             raise MeshError(f"physical group {name!r} has no mesh elements; check which entities it lists")
 
     # compact node numbering: drop nodes that belong to no triangle (e.g. unused geometry points)
-    used = np.unique(triangles)
+    used = np.flatnonzero(np.bincount(triangles.ravel(), minlength=len(coords)))  # sorted, like np.unique
     if used.size != len(coords):
         remap = np.full(len(coords), -1, dtype=np.int64)
         remap[used] = np.arange(used.size)

@@ -89,10 +89,17 @@ def _with_facets(mesh: MeshTri1 | MeshTri2, like: MeshTri1 | None = None) -> Mes
     return mesh
 
 
-def _match_facets(mesh: MeshTri1, pairs: np.ndarray, what: str) -> np.ndarray:
+def _sorted_facet_keys(mesh: MeshTri1) -> np.ndarray:
+    """One integer key per facet, in facet order and ascending (scikit-fem's facets are sorted vertex
+    pairs in lexicographic order)."""
+    return mesh.facets[0].astype(np.int64) * mesh.nvertices + mesh.facets[1]
+
+
+def _match_facets(mesh: MeshTri1, pairs: np.ndarray, what: str, sorted_keys: np.ndarray | None = None) -> np.ndarray:
     """Facet index of each vertex pair; raise if any pair is not an edge of the mesh."""
-    n = mesh.p.shape[1]
-    sorted_keys = _facet_keys(mesh.facets.T, n)  # scikit-fem's facets are in lexicographic order
+    n = mesh.nvertices
+    if sorted_keys is None:
+        sorted_keys = _sorted_facet_keys(mesh)
     keys = _facet_keys(pairs, n)
     pos = np.clip(np.searchsorted(sorted_keys, keys), 0, len(sorted_keys) - 1)
     missing = sorted_keys[pos] != keys
@@ -255,7 +262,11 @@ def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> S
     """Convert gmsh's arrays into a :class:`SectionMesh`; checks the region partition and tags."""
     corners = raw.triangles[:, :3]
     # corner nodes only: mid-edge nodes of curved meshes become facet dofs below
-    corner_ids = np.unique(corners)
+    n_points = len(raw.points)
+    if raw.triangles.shape[1] == 3 and np.bincount(corners.ravel(), minlength=n_points).all():
+        corner_ids = np.arange(n_points)  # every point is a corner (the usual straight mesh): no sort needed
+    else:
+        corner_ids = np.unique(corners)
     remap = np.full(len(raw.points), -1, dtype=np.int64)
     remap[corner_ids] = np.arange(corner_ids.size)
     p = np.ascontiguousarray(raw.points[corner_ids].T)
@@ -277,10 +288,11 @@ def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> S
         raise MeshError(f"{int((region_of_element < 0).sum())} triangles belong to no physical surface; group every surface")
 
     curve_facets = {}
+    facet_keys = _sorted_facet_keys(base)
     for name, segments in raw.curve_groups.items():
         if (remap[segments] < 0).any():
             raise MeshError(f"physical curve {name!r} has nodes that are not triangle corners")
-        curve_facets[name] = np.unique(_match_facets(base, remap[segments], f"physical curve {name!r}"))
+        curve_facets[name] = np.unique(_match_facets(base, remap[segments], f"physical curve {name!r}", facet_keys))
 
     mesh: MeshTri1 | MeshTri2 = base
     if raw.triangles.shape[1] == 6:
@@ -291,7 +303,7 @@ def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> S
         mid_nodes = np.concatenate([raw.triangles[:, 3 + k] for k in range(3)])
         given = mid_nodes >= 0  # -1 marks a straight edge (the mapped exterior)
         edge_pairs, mid_nodes = edge_pairs[given], mid_nodes[given]
-        facets = _match_facets(base, edge_pairs, "mid-edge nodes")
+        facets = _match_facets(base, edge_pairs, "mid-edge nodes", facet_keys)
         doflocs[:, base.nvertices + facets] = raw.points[mid_nodes].T
         mesh = _with_facets(MeshTri2(np.ascontiguousarray(doflocs), base.t), like=base)
 

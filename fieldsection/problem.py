@@ -272,8 +272,10 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
                                     np.zeros(0, dtype=np.int64)))
     _check_holes(case, section)
     _check_touching(conductors, basis)
-    taken = np.concatenate([c.dofs for c in conductors])
-    free = np.setdiff1d(np.arange(basis.N), taken)
+    is_free = np.ones(basis.N, dtype=bool)
+    for conductor in conductors:
+        is_free[conductor.dofs] = False
+    free = np.flatnonzero(is_free)
     material_of_region = dict(case.regions)
     return AssembledProblem(section, basis, stiffness, er, material_of_region, dielectric, tuple(conductors),
                             free, case.outer_boundary, case.symmetry_copies, tuple(notes), axisymmetric)
