@@ -199,8 +199,10 @@ class FactorisedSystem:
         self._T = sp.csr_matrix((np.ones(rows.size), (rows, cols)), shape=(problem.ndofs, n_free + len(floating)))
         if self._T.shape[1] == 0:
             raise SolverError("no free degrees of freedom: every node is on an electrode; refine the mesh")
-        self._K_T = (problem.stiffness @ self._T).tocsr()
-        reduced = (self._T.T @ self._K_T).tocsc()
+        if floating:
+            reduced = (self._T.T @ (problem.stiffness @ self._T)).tocsc()
+        else:  # T only picks the free DOFs: slicing is several times faster than two sparse products
+            reduced = problem.stiffness[free][:, free].tocsc()
         self._n = reduced.shape[0]
         self._check_determined(reduced, n_free)
         missing = []
