@@ -17,7 +17,8 @@ Measured, at each size:
   side, loaded from a file in a fresh process (so its memory is the matrix and the solver only);
 - fieldsection's pipeline, stage by stage with the peak memory after each stage, without and with
   figures, with ``[mesh] refinements = k`` chosen so the coarse mesh has about 25 000 nodes;
-- the capacitance matrix: the pipeline's solver set up once, solved for one conductor and for all.
+- the capacitance matrix: the pipeline's solver set up once, solved for one conductor and for all;
+- the time and DOFs to reach a coaxial line's capacitance within 1e-4 by uniform refinement.
 """
 
 from __future__ import annotations
@@ -213,6 +214,34 @@ def matrix_solve(path: str, backend: str) -> dict:
     return {"setup": setup, "one": one, "all": every, "one_solve": setup + one, "matrix_solve": setup + every}
 
 
+def coaxial_accuracy(order: int, wanted: float = 1e-4) -> dict:
+    """Refine a coaxial line uniformly until its capacitance is within ``wanted`` of the closed form.
+
+    C = 2 pi eps0 eps_r / ln(b/a) (Gauss's law; D. M. Pozar, Microwave Engineering, 4th ed., 2012,
+    Table 2.1). Step k meshes at 0.8 mm and refines k times, so the element size halves per step.
+    """
+    from scipy.constants import epsilon_0
+
+    from fieldsection import Case, Material, MeshSettings, ScriptGeometry, analyse
+
+    a, b, eps_r = 1e-3, 3e-3, 2.25
+    exact = 2 * np.pi * epsilon_0 * eps_r / np.log(b / a)
+    steps = []
+    for k in range(7):
+        case = Case("coaxial", ScriptGeometry(HERE.parent / "geometries" / "coaxial.geo", {"lc": 0.8 / 2**k}, 1e-3),
+                    {"insulation": Material("test dielectric", eps_r, None)}, {"inner": 1.0, "outer": 0.0},
+                    mesh=MeshSettings(element_order=order, curved=order == 2, refinements=k))
+        start = time.perf_counter()
+        result = analyse(case)
+        seconds = time.perf_counter() - start
+        error = abs(result.capacitance.two_level.from_energy / exact - 1)
+        steps.append({"refinements": k, "dofs": int(result.problem.ndofs), "seconds": seconds,
+                      "relative_error": float(error)})
+        if error <= wanted:
+            break
+    return {"order": order, "wanted": wanted, "steps": steps, "reached": steps[-1]["relative_error"] <= wanted}
+
+
 def _solver_names(unknowns: int, everything: bool) -> list[str]:
     import importlib.util
 
@@ -275,8 +304,15 @@ def run(nodes_wanted: list[float], order: int, reports: Path, everything: bool) 
         }
         rows.append(row)
         _print_row(row)
+    accuracy = [_in_child(coaxial_accuracy, p) for p in (1, 2)]
+    print("\n== coaxial line to 1e-4 of its closed form, uniform refinement of a 0.8 mm mesh")
+    for run_ in accuracy:
+        last = run_["steps"][-1]
+        print(f"  P{run_['order']}: {'reached' if run_['reached'] else 'NOT reached'} with {last['refinements']} "
+              f"refinement(s), {last['dofs']} DOFs, {last['seconds']:.3g} s (error {last['relative_error']:.2e})")
     return {"when": datetime.now(timezone.utc).isoformat(timespec="seconds"), "machine": platform.platform(),
-            "python": sys.version.split()[0], "order": order, "rows": rows, "targets": TARGETS}
+            "python": sys.version.split()[0], "order": order, "rows": rows, "targets": TARGETS,
+            "coaxial_accuracy": accuracy}
 
 
 def _print_row(row: dict) -> None:

@@ -43,7 +43,7 @@ DPI = 120
 #: meshes with at least this many elements are drawn without their edges
 MAX_ELEMENTS_WITH_EDGES = 20_000
 #: meshes with more elements than this are drawn through a pixel grid (see the module docstring)
-RASTERISE_ABOVE = 200_000
+RASTERISE_ABOVE = 50_000
 #: pixels across the wider side of the view for that grid (a bit finer than the PNG shows)
 PIXELS = 1000
 #: hotspots beyond this rank are outlined but not numbered, to keep the plot legible
