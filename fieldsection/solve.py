@@ -10,7 +10,8 @@ The linear solver is chosen by ``method`` (the case's ``[solver] method``):
 
 - ``"direct"``: a sparse factorisation reused for every right-hand side: PARDISO (MKL, through
   the optional ``pypardiso`` package, symmetric positive definite mode on the upper triangle) if
-  installed, else scipy's SuperLU with a symmetric ordering;
+  installed, else scipy's SuperLU (with a symmetric ordering up to ``ITERATIVE_ABOVE`` unknowns:
+  minimum degree on A^T + A is fast on small systems and takes minutes at a million);
 - ``"iterative"``: conjugate gradients preconditioned by classical (Ruge-Stueben) algebraic
   multigrid (``pyamg``) after a reverse Cuthill-McKee renumbering; one preconditioner, one CG run
   per right-hand side, each checked for convergence;
