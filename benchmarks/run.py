@@ -206,8 +206,8 @@ def matrix_solve(path: str, backend: str) -> dict:
     start = time.perf_counter()
     solver.solve(B[:, :1].copy())
     one = time.perf_counter() - start
-    # the iterative path derives the last conductor's solution from the others (they sum to 1)
-    columns = B[:, :-1] if backend == "AMG-CG" and B.shape[1] > 1 else B
+    # the pipeline derives the last conductor's unit solution from the others (they sum to 1)
+    columns = B[:, :-1] if B.shape[1] > 1 else B
     start = time.perf_counter()
     solver.solve(columns.copy())
     every = time.perf_counter() - start

@@ -4,7 +4,7 @@ Unknowns are the free DOFs plus one potential per floating conductor (all of its
 The unit solutions U[:, i] (fixed conductor i at 1 V, the other fixed ones at 0 V, floating ones
 uncharged) and W[:, k] (every fixed conductor at 0 V, floating conductor k carrying 1 C/m) give
 the case's potential by superposition and the Maxwell capacitance matrix, so N conductors cost one
-factorisation and N cheap solves.
+factorisation and N - 1 cheap solves (the unit solutions of all fixed conductors sum to 1).
 
 The linear solver is chosen by ``method`` (the case's ``[solver] method``):
 
@@ -292,9 +292,10 @@ def solve(problem: AssembledProblem, method: str = "auto") -> Solution:
     charges = np.zeros((len(floating), lifts.shape[1]))
     charges[:, len(fixed):] = np.eye(len(floating))
     # The unit solutions of all fixed conductors sum to 1 everywhere (K annihilates constants and the
-    # floating conductors stay uncharged), so an iterative solver skips the last one's CG run.
+    # floating conductors stay uncharged), so the last one is not solved for: one CG run or one
+    # back-substitution fewer.
     solved = np.ones(lifts.shape[1], dtype=bool)
-    if system.solver_name == "AMG-CG" and len(fixed) > 1:
+    if len(fixed) > 1:
         solved[len(fixed) - 1] = False
     both = np.empty_like(lifts)
     try:
