@@ -11,8 +11,9 @@ The case file schema (documented in the README) is fieldsection's own::
     [boundary]      outer = "grounded" | "insulated" | "open"; [boundary.curves] name = "insulated"
     [symmetry]      copies = 2 (the model is half of the full section)
     [hotspots]      fraction = 0.5
-    [mesh]          size, near_electrodes, element_order, curved, [mesh.region_sizes]
+    [mesh]          size, near_electrodes, element_order, curved, refinements, [mesh.region_sizes]
     [refinement]    adaptive, capacitance_tolerance, field_tolerance, max_dofs, max_passes
+    [solver]        method = "auto" | "direct" | "iterative"
 
 Everything here is validated without touching the geometry; names are checked against the
 geometry's physical groups in the mesh stage.
@@ -43,7 +44,13 @@ MODELS = {
     "axisymmetric": "a body of revolution about the y axis (x is the radius); results for the whole body",
 }
 ELEMENT_ORDERS = (1, 2, 3)
+MAX_REFINEMENTS = 6  # each uniform refinement multiplies the element count by 4
 DEFAULT_HOTSPOT_FRACTION = 0.5
+SOLVER_METHODS = {
+    "auto": "chosen by the size of the system and the solvers installed",
+    "direct": "a sparse factorisation reused for every conductor (PARDISO if installed, else SuperLU)",
+    "iterative": "conjugate gradients with an algebraic-multigrid preconditioner (less memory on big models)",
+}
 
 
 @dataclass(frozen=True)
@@ -76,8 +83,15 @@ class MeshSettings:
     region_sizes: Mapping[str, float] = field(default_factory=dict)
     element_order: int = 2
     curved: bool = True  # second-order geometry: mid-edge nodes placed on arcs
+    refinements: int = 0  # mesh at 2**k times the sizes, then split every triangle into four, k times
 
     def __post_init__(self) -> None:
+        k = self.refinements
+        if isinstance(k, bool) or not isinstance(k, int) or not 0 <= k <= MAX_REFINEMENTS:
+            raise CaseFileError(
+                f"mesh.refinements = {k!r}: a whole number from 0 to {MAX_REFINEMENTS}, how many times every "
+                "triangle of a coarser mesh is split into four (each split halves the element size)"
+            )
         if self.element_order not in ELEMENT_ORDERS:
             raise CaseFileError(
                 f"mesh.element_order = {self.element_order!r}: use one of {ELEMENT_ORDERS} (2 is the default)"
@@ -140,6 +154,7 @@ class Case:
     model: str = "planar"  # or "axisymmetric": x is the radius r >= 0, y the axis z
     gas_pressure: float = 101_325.0  # Pa, for the partial-discharge screening of gas regions
     refinement: Refinement = field(default_factory=Refinement)
+    solver: str = "auto"  # linear solver: a key of SOLVER_METHODS
 
     def __post_init__(self) -> None:
         if not self.regions:
@@ -175,6 +190,8 @@ class Case:
         if not (math.isfinite(self.gas_pressure) and self.gas_pressure > 0):
             raise CaseFileError(f"hotspots.gas_pressure = {self.gas_pressure!r} Pa: must be a positive pressure, "
                                 "e.g. '1 atm' or '0.5 MPa'")
+        if self.solver not in SOLVER_METHODS:
+            raise CaseFileError(f"solver.method = {self.solver!r}: use one of {', '.join(map(repr, SOLVER_METHODS))}")
         if self.model not in MODELS:
             raise CaseFileError(f"geometry.model = {self.model!r}: use one of {', '.join(map(repr, MODELS))}")
         copies = self.symmetry_copies
@@ -205,7 +222,7 @@ class Case:
 
 
 _TOP_KEYS = {"title", "geometry", "regions", "materials", "electrodes", "boundary", "hotspots", "mesh", "symmetry",
-             "refinement"}
+             "refinement", "solver"}
 
 
 def _table(data: Mapping[str, Any], key: str, where: str) -> Mapping[str, Any]:
@@ -356,7 +373,8 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
     _check_keys(hotspots, {"fraction", "gas_pressure"}, f"{where} [hotspots]")
     mesh_table = _table(data, "mesh", where)
     _check_keys(
-        mesh_table, {"size", "near_electrodes", "region_sizes", "element_order", "curved"}, f"{where} [mesh]"
+        mesh_table, {"size", "near_electrodes", "region_sizes", "element_order", "curved", "refinements"},
+        f"{where} [mesh]"
     )
 
     def optional_length(key: str) -> float | None:
@@ -371,6 +389,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         },
         element_order=_whole(mesh_table.get("element_order", 2), "mesh.element_order"),
         curved=_flag(mesh_table.get("curved", True), "mesh.curved"),
+        refinements=_whole(mesh_table.get("refinements", 0), "mesh.refinements"),
     )
     refinement_table = _table(data, "refinement", where)
     _check_keys(refinement_table, {"adaptive", "capacitance_tolerance", "field_tolerance", "max_dofs", "max_passes"},
@@ -383,6 +402,8 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         max_dofs=_whole(refinement_table.get("max_dofs", defaults.max_dofs), "refinement.max_dofs"),
         max_passes=_whole(refinement_table.get("max_passes", defaults.max_passes), "refinement.max_passes"),
     )
+    solver_table = _table(data, "solver", where)
+    _check_keys(solver_table, {"method"}, f"{where} [solver]")
     title = data.get("title", "")
     return Case(
         name=path.stem,
@@ -400,6 +421,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         model=model,
         gas_pressure=to_si(hotspots.get("gas_pressure", 101_325.0), "pressure", "hotspots.gas_pressure"),
         refinement=refinement,
+        solver=solver_table.get("method", "auto"),
     )
 
 

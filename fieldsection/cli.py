@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from dataclasses import replace
 from pathlib import Path
 
 from . import __version__
@@ -32,6 +33,9 @@ def _parser() -> argparse.ArgumentParser:
                      help="allow gmsh commands that run programs (System, SystemCall, ...) in the geometry script")
     run.add_argument("--quiet", action="store_true", help="no progress bar and no summary")
     run.add_argument("--profile", action="store_true", help="print each stage's time and the peak memory after it")
+    run.add_argument("--solver", choices=("auto", "direct", "iterative"), default=None,
+                     help="linear solver, overriding the case's [solver] method: direct factorisation (PARDISO if "
+                          "installed, else SuperLU), iterative (AMG-preconditioned CG), or auto (by size)")
     verbs.add_parser("materials", help="list the shipped materials table")
     return parser
 
@@ -44,6 +48,8 @@ def _run(args: argparse.Namespace) -> int:
     from .report import write_report
 
     case = load_case(args.case, trust_script=args.trust_script)
+    if args.solver is not None:
+        case = replace(case, solver=args.solver)
     total = len(STAGES) + 7  # computing stages, results, five figures, the VTU file
     with tqdm(total=total, disable=args.quiet, unit="stage", desc=case.name, file=sys.stderr) as bar:
         peaks: list[tuple[str, float, float]] = []  # (stage, start time, peak memory so far)
@@ -64,6 +70,9 @@ def _run(args: argparse.Namespace) -> int:
         for (name, start, _), (_, end, peak) in zip(peaks, peaks[1:]):
             print(f"{name:24s} {end - start:9.3f} {peak:24.2f}")
         print(f"{'total':24s} {peaks[-1][1] - peaks[0][1]:9.3f}")
+        mesh = result.section.mesh
+        print(f"{mesh.nvertices} vertices, {mesh.nelements} elements, {result.problem.ndofs} DOFs; "
+              f"linear solver {result.solution.solver}")
     return EXIT_OK
 
 

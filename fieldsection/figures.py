@@ -7,6 +7,12 @@ charge density in uC/m^2.
 
 Curved (second-order) meshes are drawn by their corner vertices, i.e. with straight chords.
 Every function writes a PNG at ``DPI``, releases the figure and returns the path written.
+
+Big meshes (above ``RASTERISE_ABOVE`` elements) are drawn at the resolution a screen shows: as an
+image ``PIXELS`` wide whose pixels take the value of the element under their centre (the potential
+interpolated linearly); elements too small to hold a pixel centre add their value to their
+centroid's pixel, the highest |E| winning, so no peak is averaged away. Outlines, electrodes and
+hotspot markers are drawn as lines and markers at their true positions.
 """
 
 from __future__ import annotations
@@ -36,8 +42,10 @@ from .solve import Solution
 DPI = 120
 #: meshes with at least this many elements are drawn without their edges
 MAX_ELEMENTS_WITH_EDGES = 20_000
-#: meshes with more elements than this have their filled artists rasterised
-RASTERISE_ABOVE = 200_000
+#: meshes with more elements than this are drawn through a pixel grid (see the module docstring)
+RASTERISE_ABOVE = 50_000
+#: pixels across the wider side of the view for that grid (a bit finer than the PNG shows)
+PIXELS = 1000
 #: hotspots beyond this rank are outlined but not numbered, to keep the plot legible
 MAX_NUMBERED_HOTSPOTS = 20
 #: a hotspot label closer than this share of the section's size to a higher-ranked one is omitted
@@ -94,12 +102,96 @@ def _region_colours(problem: AssembledProblem) -> np.ndarray:
     return rgb
 
 
+class _Binned:
+    """A view of a big mesh as a pixel grid: each pixel centre takes the value of the element it lies in.
+
+    Elements too small to hold a pixel centre are added by their centroid's pixel, and the largest
+    value wins where several meet ("max": |E|, so no peak is lost at screen resolution); vertex
+    values ("linear") are interpolated at the pixel centres. ``window`` (x0, x1, y0, y1) in mm.
+    """
+
+    def __init__(self, problem: AssembledProblem, shown: np.ndarray, window: tuple[float, ...] | None = None):
+        mesh = problem.section.mesh
+        xy = _vertices_mm(problem)
+        corners = xy[:, mesh.t]  # (2, 3, nelements)
+        low, high = corners.min(axis=1), corners.max(axis=1)
+        if window is None:
+            x0, y0 = low[:, shown].min(axis=1) if shown.any() else xy.min(axis=1)
+            x1, y1 = high[:, shown].max(axis=1) if shown.any() else xy.max(axis=1)
+        else:
+            x0, x1, y0, y1 = window
+        pixel = max(x1 - x0, y1 - y0) / PIXELS
+        nx, ny = max(int(np.ceil((x1 - x0) / pixel)), 1), max(int(np.ceil((y1 - y0) / pixel)), 1)
+        self.extent = (x0, x0 + nx * pixel, y0, y0 + ny * pixel)
+        self.nx, self.ny = nx, ny
+        elements = np.flatnonzero(shown & (high[0] >= x0) & (low[0] <= x1) & (high[1] >= y0) & (low[1] <= y1))
+        # pixel centres inside each element's bounding box, then a barycentric inside test
+        i_lo = np.clip(np.ceil((low[0, elements] - x0) / pixel - 0.5), 0, nx).astype(np.int64)
+        i_hi = np.clip(np.floor((high[0, elements] - x0) / pixel - 0.5), -1, nx - 1).astype(np.int64)
+        j_lo = np.clip(np.ceil((low[1, elements] - y0) / pixel - 0.5), 0, ny).astype(np.int64)
+        j_hi = np.clip(np.floor((high[1, elements] - y0) / pixel - 0.5), -1, ny - 1).astype(np.int64)
+        width, height = np.maximum(i_hi - i_lo + 1, 0), np.maximum(j_hi - j_lo + 1, 0)
+        count = width * height
+        owner = np.repeat(np.arange(elements.size), count)
+        local = np.arange(owner.size) - np.repeat(np.cumsum(count) - count, count)
+        i = i_lo[owner] + local % width[owner]
+        j = j_lo[owner] + local // width[owner]
+        px, py = x0 + (i + 0.5) * pixel, y0 + (j + 0.5) * pixel
+        c = corners[:, :, elements[owner]]
+        det = (c[0, 1] - c[0, 0]) * (c[1, 2] - c[1, 0]) - (c[0, 2] - c[0, 0]) * (c[1, 1] - c[1, 0])
+        l1 = ((px - c[0, 0]) * (c[1, 2] - c[1, 0]) - (c[0, 2] - c[0, 0]) * (py - c[1, 0])) / det
+        l2 = ((c[0, 1] - c[0, 0]) * (py - c[1, 0]) - (px - c[0, 0]) * (c[1, 1] - c[1, 0])) / det
+        tolerance = -1e-9
+        inside = (l1 >= tolerance) & (l2 >= tolerance) & (1 - l1 - l2 >= tolerance)
+        self._element = elements[owner[inside]]
+        self._pixel = (j * nx + i)[inside]
+        self._weights = np.column_stack([1 - l1 - l2, l1, l2])[inside]
+        held = np.zeros(mesh.nelements, dtype=bool)
+        held[self._element] = True
+        tiny = elements[~held[elements]]  # elements holding no pixel centre: their centroid's pixel
+        centre = corners[:, :, tiny].mean(axis=1)
+        ci = np.clip(((centre[0] - x0) / pixel).astype(np.int64), 0, nx - 1)
+        cj = np.clip(((centre[1] - y0) / pixel).astype(np.int64), 0, ny - 1)
+        self._tiny, self._tiny_pixel = tiny, cj * nx + ci
+        self._t = mesh.t
+        self._whole_view = window is None
+
+    def image(self, values: np.ndarray, how: str = "max") -> np.ma.MaskedArray:
+        """Per element ``values`` ("max"), or per vertex values interpolated linearly ("linear")."""
+        flat = np.full(self.nx * self.ny, np.nan)
+        if how == "linear":
+            flat[self._pixel] = (values[self._t[:, self._element]].T * self._weights).sum(axis=1)
+        else:
+            pixels = np.concatenate([self._pixel, self._tiny_pixel])
+            v = np.concatenate([values[self._element], values[self._tiny]])
+            order = np.argsort(v, kind="stable")
+            flat[pixels[order]] = v[order]  # increasing order: the largest value lands last
+        return np.ma.masked_invalid(flat.reshape(self.ny, self.nx))
+
+    def draw(self, ax: Axes, values: np.ndarray, how: str = "max", **style):
+        picture = ax.imshow(self.image(values, how), extent=self.extent, origin="lower", interpolation="nearest",
+                            aspect="equal", **style)
+        if self._whole_view:  # the same margins as the drawn meshes of smaller models
+            x0, x1, y0, y1 = self.extent
+            dx, dy = 0.06 * (x1 - x0), 0.06 * (y1 - y0)
+            ax.set_xlim(x0 - dx, x1 + dx)
+            ax.set_ylim(y0 - dy, y1 + dy)
+        return picture
+
+
+def _big(problem: AssembledProblem) -> bool:
+    return problem.section.mesh.nelements > RASTERISE_ABOVE
+
+
 def _fill_regions(ax: Axes, problem: AssembledProblem, strength: float = 1.0) -> None:
     """Fill each region with its colour, mixed with white by ``1 - strength`` (opaque, no seams)."""
     colours = 1.0 - strength * (1.0 - _region_colours(problem))
-    ax.tripcolor(_triangulation(problem), facecolors=problem.section.region_of_element.astype(float),
-                 cmap=ListedColormap(colours), vmin=-0.5, vmax=len(colours) - 0.5,
-                 rasterized=problem.section.mesh.nelements > RASTERISE_ABOVE)
+    style = dict(cmap=ListedColormap(colours), vmin=-0.5, vmax=len(colours) - 0.5)
+    regions = problem.section.region_of_element.astype(float)
+    if _big(problem):
+        _Binned(problem, ~problem.section.exterior).draw(ax, regions, **style)
+        return
+    ax.tripcolor(_triangulation(problem), facecolors=regions, **style)
 
 
 def _draw_outline(ax: Axes, problem: AssembledProblem, width: float = 0.6) -> None:
@@ -213,6 +305,8 @@ def plot_potential(solution: Solution, path: str | os.PathLike) -> Path:
         return _save(fig, path)
 
     dielectric = problem.dielectric
+    if big:
+        return _plot_potential_binned(problem, values, low, high, unit, fig, ax, path)
     tri = _triangulation(problem, mask=~dielectric if (~dielectric).any() else None)
     levels = np.linspace(low, high, 31)
     pad = 1e-9 * (high - low)
@@ -220,10 +314,9 @@ def plot_potential(solution: Solution, path: str | os.PathLike) -> Path:
     filled = ax.tricontourf(tri, values, levels=levels, cmap="cividis")
     lines = ax.tricontour(tri, values, levels=np.linspace(low, high, 17)[1:-1], colors="black",
                           linewidths=0.5, alpha=0.7, negative_linestyles="solid")
-    filled.set_rasterized(big)
     if (~dielectric).any():  # meshed conductors: flat, in the colour of their potential
         ax.tripcolor(_triangulation(problem, mask=dielectric), facecolors=values[mesh.t].mean(axis=0),
-                     cmap=filled.cmap, norm=filled.norm, rasterized=big)
+                     cmap=filled.cmap, norm=filled.norm)
     _draw_outline(ax, problem)
     bar = fig.colorbar(filled, ax=ax, shrink=0.85)
     ticks = MaxNLocator(8).tick_values(low, high)
@@ -231,6 +324,26 @@ def plot_potential(solution: Solution, path: str | os.PathLike) -> Path:
     bar.set_label(f"V ({unit})")
     bar.add_lines(lines)
     ax.set_title(f"Potential ({unit}), {len(lines.levels)} equipotential lines", fontsize=10)
+    return _save(fig, path)
+
+
+def _plot_potential_binned(problem: AssembledProblem, values: np.ndarray, low: float, high: float, unit: str,
+                           fig: Figure, ax: Axes, path) -> Path:
+    """The potential of a big mesh: element means binned into pixels, equipotentials from that image."""
+    binned = _Binned(problem, ~problem.section.exterior)
+    image = binned.image(values, "linear")
+    picture = binned.draw(ax, values, "linear", cmap="cividis", norm=Normalize(low, high))
+    x0, x1, y0, y1 = binned.extent
+    gx = x0 + (np.arange(binned.nx) + 0.5) * (x1 - x0) / binned.nx
+    gy = y0 + (np.arange(binned.ny) + 0.5) * (y1 - y0) / binned.ny
+    lines = ax.contour(gx, gy, image, levels=np.linspace(low, high, 17)[1:-1], colors="black", linewidths=0.5,
+                       alpha=0.7, negative_linestyles="solid")
+    _draw_outline(ax, problem)
+    bar = fig.colorbar(picture, ax=ax, shrink=0.85)
+    bar.set_label(f"V ({unit})")
+    bar.add_lines(lines)
+    ax.set_title(f"Potential ({unit}), {len(lines.levels)} equipotential lines (drawn at screen resolution)",
+                 fontsize=10)
     return _save(fig, path)
 
 
@@ -269,12 +382,20 @@ def plot_field(problem: AssembledProblem, fields: ElementFields, hotspots: Hotsp
     dielectric = problem.dielectric
     fig, ax = _new_figure(problem)
     top = float(peak[dielectric].max())
-    shading = ax.tripcolor(_triangulation(problem, mask=~dielectric), facecolors=peak, cmap="YlOrRd",
-                           norm=Normalize(0.0, top if top > 0 else 1.0),
-                           rasterized=mesh.nelements > RASTERISE_ABOVE)
-    if (~dielectric).any():  # meshed conductors: flat grey, no field drawn
-        ax.tripcolor(_triangulation(problem, mask=dielectric), facecolors=np.zeros(mesh.nelements),
-                     cmap=ListedColormap([_CONDUCTOR_FILL]), rasterized=mesh.nelements > RASTERISE_ABOVE)
+    norm = Normalize(0.0, top if top > 0 else 1.0)
+    window = _detail_window(problem, fields, hotspots) if detail else None
+    if _big(problem):
+        drawn = dielectric & ~problem.section.exterior
+        shading = _Binned(problem, drawn, window).draw(ax, peak, cmap="YlOrRd", norm=norm)
+        conductor = ~dielectric & ~problem.section.exterior
+        if conductor.any():
+            _Binned(problem, conductor, window).draw(ax, np.zeros(mesh.nelements),
+                                                     cmap=ListedColormap([_CONDUCTOR_FILL]))
+    else:
+        shading = ax.tripcolor(_triangulation(problem, mask=~dielectric), facecolors=peak, cmap="YlOrRd", norm=norm)
+        if (~dielectric).any():  # meshed conductors: flat grey, no field drawn
+            ax.tripcolor(_triangulation(problem, mask=dielectric), facecolors=np.zeros(mesh.nelements),
+                         cmap=ListedColormap([_CONDUCTOR_FILL]))
     _draw_outline(ax, problem, width=0.5)
 
     found = hotspots.hotspots
@@ -303,17 +424,25 @@ def plot_field(problem: AssembledProblem, fields: ElementFields, hotspots: Hotsp
     bar.set_label("|E| (kV/mm)")
     title = f"Peak |E| per element, max {top:.3g} kV/mm"
     if detail:
-        if found:
-            centre = np.asarray(found[0].location) * _MM
-        else:
-            hottest = int(np.argmax(np.where(dielectric, peak, -np.inf)))
-            centre = mesh.p[:, mesh.t[:, hottest]].mean(axis=1) * _MM
-        half = DETAIL_HALF_WIDTH * float(np.ptp(_vertices_mm(problem), axis=1).max())
-        ax.set_xlim(centre[0] - half, centre[0] + half)
-        ax.set_ylim(centre[1] - half, centre[1] + half)
+        x0, x1, y0, y1 = window
+        centre = np.array([x0 + x1, y0 + y1]) / 2
+        ax.set_xlim(x0, x1)
+        ax.set_ylim(y0, y1)
         title = f"Detail around ({centre[0]:.3g}, {centre[1]:.3g}) mm; " + title[0].lower() + title[1:]
     ax.set_title(f"{title}\n{note}", fontsize=10)
     return _save(fig, path)
+
+
+def _detail_window(problem: AssembledProblem, fields: ElementFields, hotspots: HotspotResult) -> tuple[float, ...]:
+    """(x0, x1, y0, y1) in mm around the top-ranked hotspot, or the element of highest |E|."""
+    mesh = problem.section.mesh
+    if hotspots.hotspots:
+        centre = np.asarray(hotspots.hotspots[0].location) * _MM
+    else:
+        hottest = int(np.argmax(np.where(problem.dielectric, fields.element_peak_E, -np.inf)))
+        centre = mesh.p[:, mesh.t[:, hottest]].mean(axis=1) * _MM
+    half = DETAIL_HALF_WIDTH * float(np.ptp(_vertices_mm(problem), axis=1).max())
+    return (centre[0] - half, centre[0] + half, centre[1] - half, centre[1] + half)
 
 
 def plot_bound_charge(problem: AssembledProblem, charges: ChargeResult, path: str | os.PathLike) -> Path:

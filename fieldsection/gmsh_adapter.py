@@ -353,8 +353,13 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
             f"Physical Surface(\"my_region\") = {{{loose[0]}}}; and map it in [regions] (or make it a hole)"
         )
     _apply_sizes(gmsh, settings, scale, surfaces, curves, electrode_names & (set(surfaces) | set(curves)), size_field)
+    if settings.refinements:  # mesh coarser by 2**k, then split each triangle into four, k times
+        gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**settings.refinements)
     try:
         gmsh.model.mesh.generate(2)
+        for _ in range(settings.refinements):
+            # gmsh places the new nodes of boundary edges on the geometry's curves, so arcs stay arcs
+            gmsh.model.mesh.refine()
         curved = settings.curved
         if curved:
             gmsh.model.mesh.setOrder(2)
@@ -433,7 +438,7 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
             raise MeshError(f"physical group {name!r} has no mesh elements; check which entities it lists")
 
     # compact node numbering: drop nodes that belong to no triangle (e.g. unused geometry points)
-    used = np.unique(triangles)
+    used = np.flatnonzero(np.bincount(triangles.ravel(), minlength=len(coords)))  # sorted, like np.unique
     if used.size != len(coords):
         remap = np.full(len(coords), -1, dtype=np.int64)
         remap[used] = np.arange(used.size)

@@ -142,8 +142,13 @@ def find_triple_points(problem: AssembledProblem, magnitude: np.ndarray) -> tupl
         element[cols[order][last]] = rows[order][last]
         return value, element
 
-    gas_E, gas_element = largest_at_vertices(element_kind == "gas")
-    solid_E, solid_element = largest_at_vertices((element_kind == "solid") | (element_kind == "liquid"))
+    # only conductor vertices are asked for: only the elements touching one take part
+    on_conductor = np.zeros(n, dtype=bool)
+    for conductor in problem.conductors:
+        on_conductor[mesh.facets[:, conductor.facets].ravel()] = True
+    touching = on_conductor[corners].any(axis=1)
+    gas_E, gas_element = largest_at_vertices(touching & (element_kind == "gas"))
+    solid_E, solid_element = largest_at_vertices(touching & ((element_kind == "solid") | (element_kind == "liquid")))
     points = []
     for conductor in problem.conductors:
         if conductor.facets.size == 0:

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from typing import Mapping
 
 import numpy as np
@@ -62,19 +62,52 @@ def _facet_keys(pairs: np.ndarray, n_vertices: int) -> np.ndarray:
     return pairs[:, 0] * n_vertices + pairs[:, 1]
 
 
-def _match_facets(mesh: MeshTri1, pairs: np.ndarray, what: str) -> np.ndarray:
+def _with_facets(mesh: MeshTri1 | MeshTri2, like: MeshTri1 | None = None) -> MeshTri1 | MeshTri2:
+    """Give ``mesh`` its facet tables (``facets``, ``t2f``, ``f2t``) from one sort of integer keys.
+
+    They are exactly scikit-fem's own (facets as sorted vertex pairs in lexicographic order, ``t2f``
+    by the reference facets), built about 10x faster than its row-wise ``np.unique``; scikit-fem
+    caches them in these attributes. ``like``: a mesh with the same triangles whose tables are reused.
+    """
+    if like is not None:
+        mesh._facets, mesh._t2f, mesh._f2t = like.facets, like.t2f, like.f2t
+        return mesh
+    local = mesh.elem.refdom.facets
+    n = mesh.nvertices
+    t = mesh.t.astype(np.int64)
+    keys = np.concatenate([_facet_keys(t[list(ix)].T, n) for ix in local])
+    unique, inverse = np.unique(keys, return_inverse=True)
+    mesh._facets = np.ascontiguousarray(np.vstack([unique // n, unique % n]).astype(np.int32))
+    mesh._t2f = inverse.reshape(len(local), -1).astype(np.int32)
+    # f2t: first and last element listing each facet (in t2f's row-major order), -1 if only one
+    element = np.tile(np.arange(mesh.nelements, dtype=np.int32), len(local))
+    first = np.full(unique.size, -1, dtype=np.int32)
+    last = np.full(unique.size, -1, dtype=np.int32)
+    first[inverse[::-1]] = element[::-1]  # repeated indices: the last assignment wins
+    last[inverse] = element
+    last[last == first] = -1
+    mesh._f2t = np.vstack([first, last])
+    return mesh
+
+
+def _sorted_facet_keys(mesh: MeshTri1) -> np.ndarray:
+    """One integer key per facet, in facet order and ascending (scikit-fem's facets are sorted vertex
+    pairs in lexicographic order)."""
+    return mesh.facets[0].astype(np.int64) * mesh.nvertices + mesh.facets[1]
+
+
+def _match_facets(mesh: MeshTri1, pairs: np.ndarray, what: str, sorted_keys: np.ndarray | None = None) -> np.ndarray:
     """Facet index of each vertex pair; raise if any pair is not an edge of the mesh."""
-    n = mesh.p.shape[1]
-    mesh_keys = _facet_keys(mesh.facets.T, n)
-    order = np.argsort(mesh_keys)
-    sorted_keys = mesh_keys[order]
+    n = mesh.nvertices
+    if sorted_keys is None:
+        sorted_keys = _sorted_facet_keys(mesh)
     keys = _facet_keys(pairs, n)
     pos = np.clip(np.searchsorted(sorted_keys, keys), 0, len(sorted_keys) - 1)
     missing = sorted_keys[pos] != keys
     if missing.any():
         raise MeshError(f"{what}: {int(missing.sum())} segment(s) are not edges of the triangle mesh; "
                         "every physical curve must lie on the boundary of a meshed surface")
-    return order[pos]
+    return pos
 
 
 @dataclass(frozen=True)
@@ -230,12 +263,16 @@ def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> S
     """Convert gmsh's arrays into a :class:`SectionMesh`; checks the region partition and tags."""
     corners = raw.triangles[:, :3]
     # corner nodes only: mid-edge nodes of curved meshes become facet dofs below
-    corner_ids = np.unique(corners)
+    n_points = len(raw.points)
+    if raw.triangles.shape[1] == 3 and np.bincount(corners.ravel(), minlength=n_points).all():
+        corner_ids = np.arange(n_points)  # every point is a corner (the usual straight mesh): no sort needed
+    else:
+        corner_ids = np.unique(corners)
     remap = np.full(len(raw.points), -1, dtype=np.int64)
     remap[corner_ids] = np.arange(corner_ids.size)
     p = np.ascontiguousarray(raw.points[corner_ids].T)
     t = np.ascontiguousarray(remap[corners].T)
-    base = MeshTri1(p, t)
+    base = _with_facets(MeshTri1(p, t))
     if base.t.shape[1] != len(raw.triangles):
         raise MeshError("the mesh library changed the number of triangles; report this as a bug")
 
@@ -252,22 +289,24 @@ def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> S
         raise MeshError(f"{int((region_of_element < 0).sum())} triangles belong to no physical surface; group every surface")
 
     curve_facets = {}
+    facet_keys = _sorted_facet_keys(base)
     for name, segments in raw.curve_groups.items():
         if (remap[segments] < 0).any():
             raise MeshError(f"physical curve {name!r} has nodes that are not triangle corners")
-        curve_facets[name] = np.unique(_match_facets(base, remap[segments], f"physical curve {name!r}"))
+        curve_facets[name] = np.unique(_match_facets(base, remap[segments], f"physical curve {name!r}", facet_keys))
 
     mesh: MeshTri1 | MeshTri2 = base
     if raw.triangles.shape[1] == 6:
-        curved = MeshTri2.from_mesh(base)
+        # P2 geometry nodes: the vertices, then one per facet (scikit-fem's DOF order), on the chord
+        # unless gmsh gave a mid-edge node
+        doflocs = np.hstack([base.p, base.p[:, base.facets].mean(axis=1)])
         edge_pairs = np.concatenate([remap[raw.triangles[:, list(e)]] for e in _GMSH_EDGES])
         mid_nodes = np.concatenate([raw.triangles[:, 3 + k] for k in range(3)])
         given = mid_nodes >= 0  # -1 marks a straight edge (the mapped exterior)
         edge_pairs, mid_nodes = edge_pairs[given], mid_nodes[given]
-        facets = _match_facets(base, edge_pairs, "mid-edge nodes")
-        doflocs = curved.doflocs.copy()
+        facets = _match_facets(base, edge_pairs, "mid-edge nodes", facet_keys)
         doflocs[:, base.nvertices + facets] = raw.points[mid_nodes].T
-        mesh = replace(curved, doflocs=doflocs)
+        mesh = _with_facets(MeshTri2(np.ascontiguousarray(doflocs), base.t), like=base)
 
     _check_quality(mesh)
     drawn = region_of_element != (names.index(EXTERIOR) if EXTERIOR in names else -1)
@@ -314,7 +353,8 @@ def _check_conforming(mesh: MeshTri1, names: tuple[str, ...], region_of_element:
     """
     from scipy.spatial import cKDTree
 
-    vertices = np.unique(mesh.t[:, drawn])  # the mapped exterior overlaps the section by design
+    # the mapped exterior overlaps the section by design
+    vertices = np.arange(mesh.nvertices) if drawn.all() else np.unique(mesh.t[:, drawn])
     extent = float(np.ptp(mesh.p, axis=1).max())
     pairs = cKDTree(mesh.p[:, vertices].T).query_pairs(r=1e-9 * extent, output_type="ndarray")
     if len(pairs):

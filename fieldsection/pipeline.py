@@ -150,7 +150,7 @@ def _one_pass(case: Case, size_field: SizeField | None, stage) -> _Pass:
     problem = stage("assemble", lambda: assemble(case, section))
     if size_field is not None and problem.ndofs > case.refinement.max_dofs:
         return _Pass(section, problem, None, None, None, None, None, None)  # over budget: not solved
-    solution = stage("solve", lambda: solve(problem))
+    solution = stage("solve", lambda: solve(problem, case.solver))
     fields = stage("fields", lambda: element_fields(solution))
     recovery = stage("recovery", lambda: recover_field(solution, case.refinement.adaptive))
     charges = stage("charges", lambda: compute_charges(solution, fields))

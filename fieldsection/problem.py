@@ -24,6 +24,7 @@ from .mesh import EXTERIOR, SectionMesh
 OUTER_BOUNDARY = "outer boundary"
 INFINITY = "infinity"  # the far surroundings of an axisymmetric open-space model, at 0 V
 _ELEMENTS = {1: ElementTriP1, 2: ElementTriP2, 3: ElementTriP3}
+_CENTROID = (np.array([[1 / 3], [1 / 3]]), np.array([0.5]))  # reference triangle's centroid, its area
 
 
 @dataclass(frozen=True)
@@ -177,7 +178,14 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
     """Build K and the conductor DOF sets; checks the case against the mesh's names."""
     _check_names(case, section)
     mesh = section.mesh
-    basis = Basis(mesh, _ELEMENTS[case.mesh.element_order](), intorder=2 * case.mesh.element_order)
+    order = case.mesh.element_order
+    straight_planar = case.model == "planar" and not section.curved
+    # with eps per element on straight planar elements, grad u . grad v has degree 2 (order - 1): one point
+    # integrates P1 exactly, a degree-2 rule P2; the 2 pi r weight and curved elements need more
+    if straight_planar and order == 1:
+        basis = Basis(mesh, ElementTriP1(), quadrature=_CENTROID)
+    else:
+        basis = Basis(mesh, _ELEMENTS[order](), intorder=2 * (order - 1) if straight_planar else 2 * order)
 
     conductor_regions = [r for r in case.conductor_names if r in section.region_names]
     dielectric = np.ones(mesh.nelements, dtype=bool)
@@ -272,8 +280,10 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
                                     np.zeros(0, dtype=np.int64)))
     _check_holes(case, section)
     _check_touching(conductors, basis)
-    taken = np.concatenate([c.dofs for c in conductors])
-    free = np.setdiff1d(np.arange(basis.N), taken)
+    is_free = np.ones(basis.N, dtype=bool)
+    for conductor in conductors:
+        is_free[conductor.dofs] = False
+    free = np.flatnonzero(is_free)
     material_of_region = dict(case.regions)
     return AssembledProblem(section, basis, stiffness, er, material_of_region, dielectric, tuple(conductors),
                             free, case.outer_boundary, case.symmetry_copies, tuple(notes), axisymmetric)

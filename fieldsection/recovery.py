@@ -90,7 +90,10 @@ class _Projector:
     def __init__(self, solution: Solution):
         problem = solution.problem
         self.problem = problem
-        basis = problem.basis
+        # the assembly may use a reduced rule (exact for K on straight elements); a projection needs the full one
+        order = problem.element_order
+        basis = Basis(problem.basis.mesh, problem.basis.elem, intorder=2 * order)
+        self.basis = basis
         section = problem.section
         # region-wise continuous space = element-local (DG) DOFs glued wherever they share a global
         # DOF and a region; one sparse gluing matrix, no loop over regions
@@ -125,7 +128,7 @@ class _Projector:
 
     def field(self, potential: np.ndarray) -> np.ndarray:
         """E_h = -grad u at the quadrature points, (2, nelements, nqp); zero in meshed conductors."""
-        E_h = -_gradient(self.problem.basis, potential)
+        E_h = -_gradient(self.basis, potential)
         E_h[:, ~self.problem.dielectric] = 0.0
         return E_h
 
