@@ -370,19 +370,35 @@ def hotspot_boundary_facets(problem: AssembledProblem, hotspots: HotspotResult) 
 DETAIL_HALF_WIDTH = 0.05
 
 
+def _area_quantile(values: np.ndarray, areas: np.ndarray, share: float) -> float:
+    """The value that ``share`` of the total area lies at or below."""
+    if values.size == 0:
+        return 0.0
+    order = np.argsort(values)
+    covered = np.cumsum(areas[order]) / areas.sum()
+    return float(values[order][min(np.searchsorted(covered, share), values.size - 1)])
+
+
 def plot_field(problem: AssembledProblem, fields: ElementFields, hotspots: HotspotResult,
-               path: str | os.PathLike, *, detail: bool = False) -> Path:
+               path: str | os.PathLike, *, detail: bool = False, magnitude: np.ndarray | None = None) -> Path:
     """Peak |E| per dielectric element in kV/mm; hotspot regions outlined and numbered by rank.
 
+    ``magnitude`` (nelements, 3), |E| at element vertices, replaces the element's own field (the
+    report passes the recovered one). Where the largest value is more than twice the level that all
+    but 1e-5 of the dielectric area stays below, the colour scale stops at 1.25 x that level, so that
+    a few tiny elements at a singular corner do not wash out the rest; those are drawn in the top
+    colour and counted in the title.
     With ``detail`` the view is a close-up around the top-ranked hotspot (or, without hotspots,
     the element of highest |E|), where thin films, corners and gas gaps become visible.
     """
     mesh = problem.section.mesh
-    peak = fields.element_peak_E * _KV_PER_MM
+    peak = (fields.element_peak_E if magnitude is None else magnitude.max(axis=1)) * _KV_PER_MM
     dielectric = problem.dielectric
     fig, ax = _new_figure(problem)
     top = float(peak[dielectric].max())
-    norm = Normalize(0.0, top if top > 0 else 1.0)
+    scale_top = 1.25 * _area_quantile(peak[dielectric], problem.section.element_areas[dielectric], 1 - 1e-5)
+    above = int((peak[dielectric] > scale_top).sum()) if scale_top < 0.5 * top else 0
+    norm = Normalize(0.0, (scale_top if above else top) if top > 0 else 1.0)
     window = _detail_window(problem, fields, hotspots) if detail else None
     if _big(problem):
         drawn = dielectric & ~problem.section.exterior
@@ -420,9 +436,11 @@ def plot_field(problem: AssembledProblem, fields: ElementFields, hotspots: Hotsp
             note += f"\n{shown} labels shown; crowded or lower-ranked ones omitted"
     else:
         note = f"no element reaches {hotspots.fraction:.0%} of its material's strength"
-    bar = fig.colorbar(shading, ax=ax, shrink=0.85)
+    bar = fig.colorbar(shading, ax=ax, shrink=0.85, extend="max" if above else "neither")
     bar.set_label("|E| (kV/mm)")
     title = f"Peak |E| per element, max {top:.3g} kV/mm"
+    if above:
+        title += f"\ncolour scale to {scale_top:.3g} kV/mm; {above} element(s) above it, at sharp corners"
     if detail:
         x0, x1, y0, y1 = window
         centre = np.array([x0 + x1, y0 + y1]) / 2

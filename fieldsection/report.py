@@ -67,13 +67,18 @@ def write_report(
         if with_figures:
             from . import figures as fig  # matplotlib is slow to import: only when drawing
 
+            magnitude = None  # the recovered field, as the hotspots were found on it
+            if result.recovery is not None:
+                magnitude = result.recovery.peak_search_field(result.fields.E_magnitude, result.problem.element_order)
+
             plots = [
                 ("regions.png", "Regions, materials, electrodes and mesh", lambda p: fig.plot_regions(result.problem, p)),
                 ("potential.png", "Potential", lambda p: fig.plot_potential(result.solution, p)),
                 ("field.png", "|E| per element with hotspot regions outlined",
-                 lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p)),
+                 lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p, magnitude=magnitude)),
                 ("field_detail.png", "|E| close to the highest-ranked hotspot (or the highest field)",
-                 lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p, detail=True)),
+                 lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p, detail=True,
+                                          magnitude=magnitude)),
                 ("bound_charge.png", "Bound surface charge density on material faces",
                  lambda p: fig.plot_bound_charge(result.problem, result.charges, p)),
             ]
