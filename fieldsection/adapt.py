@@ -10,6 +10,7 @@ element's new size in closed form. Sizes change by at most x4 finer or x2 coarse
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 from scipy.spatial import cKDTree
@@ -75,10 +76,13 @@ class RegionVertexField:
     values: np.ndarray  # (n,) V/m
     sizes: np.ndarray  # (n,) m
 
+    @cached_property
+    def tree(self) -> cKDTree:
+        return cKDTree(self.points)
+
     def peak_near(self, point: np.ndarray, radius: float) -> tuple[float, float] | None:
         """(largest |E|, local size there) within ``radius`` of ``point``; None if no vertex is that close."""
-        tree = cKDTree(self.points)
-        near = tree.query_ball_point(point, radius)
+        near = self.tree.query_ball_point(point, radius)
         if not near:
             return None
         best = near[int(np.argmax(self.values[near]))]

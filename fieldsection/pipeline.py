@@ -182,9 +182,9 @@ def _settled(case: Case, passes: list[_Pass]) -> bool:
     return all(c.status != "not converged" for c in every)
 
 
-def _certify_regions(case: Case, passes: list[_Pass]) -> dict[str, PeakCertificate]:
+def _certify_regions(case: Case, passes: list[_Pass], tree: cKDTree, own_fields: dict | None
+                     ) -> dict[str, PeakCertificate]:
     problem = passes[-1].problem
-    tree = cKDTree(problem.section.mesh.p.T)
     out = {}
     for name in problem.material_of_region:
         field_now = passes[-1].record.vertex_fields[name]
@@ -192,26 +192,24 @@ def _certify_regions(case: Case, passes: list[_Pass]) -> dict[str, PeakCertifica
         history = [p.record.vertex_fields[name] for p in passes]
         values = [float(v.values.max()) for v in history]
         sizes = [float(v.sizes[int(np.argmax(v.values))]) for v in history]
-        out[name] = _certificate(case, passes, tree, name, field_now.points[k], values, sizes)
+        out[name] = _certificate(case, passes, tree, name, field_now.points[k], values, sizes, own_fields)
     return out
 
 
 def _certificate(case: Case, passes: list[_Pass], tree: cKDTree, region: str, point: np.ndarray,
-                 values: list[float], sizes: list[float]) -> PeakCertificate:
+                 values: list[float], sizes: list[float], own_fields: dict | None = None) -> PeakCertificate:
     last = passes[-1]
     section = last.section
     # the geometry corner a peak belongs to may be a vertex or two away from the largest value
-    corners = section.corner_vertices
-    near = [v for v in tree.query_ball_point(point, 2.5 * sizes[-1]) if v in set(corners.tolist())] \
-        if corners.size else []
+    near = tree.query_ball_point(point, 2.5 * sizes[-1])
+    near = np.asarray(near, dtype=np.int64)[np.isin(near, section.corner_vertices)] if len(near) else []
     theories = [(t, v) for t, v in ((corner_theory(last.problem, int(v)), v) for v in near) if t is not None]
     theory, corner = min(theories, key=lambda item: item[0].exponent, default=(None, None))
     strength = last.problem.material_of_region[region].dielectric_strength
     allowed = None if strength is None else case.hotspot_fraction * strength
     single_mesh_error = None
-    if len(passes) == 1:  # one mesh: the gap between the element's own and the recovered field
-        raw = region_vertex_fields(section, last.fields.E_magnitude, [region])[region]
-        own = raw.peak_near(point, 1e-9 * float(np.ptp(section.mesh.p)))
+    if own_fields is not None:  # one mesh: the gap between the element's own and the recovered field
+        own = own_fields[region].peak_near(point, 1e-9 * float(np.ptp(section.mesh.p)))
         if own is not None and values[-1] > 0:
             single_mesh_error = abs(own[0] - values[-1]) / values[-1]
     largest = max(float(v.values.max()) for v in last.record.vertex_fields.values())
@@ -239,7 +237,7 @@ def _track(passes: list[_Pass], region: str, point: np.ndarray) -> tuple[list[fl
     values, sizes = [], []
     for p in passes:
         field = p.record.vertex_fields[region]
-        _, nearest = cKDTree(field.points).query(point)
+        _, nearest = field.tree.query(point)
         found = field.peak_near(point, max(1.5 * float(field.sizes[nearest]),
                                            float(np.hypot(*(field.points[nearest] - point))) * (1 + 1e-9)))
         values.append(found[0])
@@ -248,17 +246,22 @@ def _track(passes: list[_Pass], region: str, point: np.ndarray) -> tuple[list[fl
 
 
 def _certify_all(case: Case, passes: list[_Pass], hotspots: HotspotResult) -> Certificates:
-    problem = passes[-1].problem
-    tree = cKDTree(problem.section.mesh.p.T)
-    regions = _certify_regions(case, passes)
+    last = passes[-1]
+    tree = cKDTree(last.section.mesh.p.T)
+    own_fields = None
+    if len(passes) == 1:  # the element's own field beside the recovered one, for the single-mesh estimate
+        own_fields = region_vertex_fields(last.section, last.fields.E_magnitude, list(last.problem.material_of_region))
+    regions = _certify_regions(case, passes, tree, own_fields)
     spots = []
     for spot in hotspots.hotspots:
         values, sizes = _track(passes, spot.region, np.array(spot.location))
-        spots.append(_certificate(case, passes, tree, spot.region, np.array(spot.location), values, sizes))
+        spots.append(_certificate(case, passes, tree, spot.region, np.array(spot.location), values, sizes,
+                                  own_fields))
     triples = []
     for point in hotspots.triple_points:
         values, sizes = _track(passes, point.gas_region, np.array(point.location))
-        triples.append(_certificate(case, passes, tree, point.gas_region, np.array(point.location), values, sizes))
+        triples.append(_certificate(case, passes, tree, point.gas_region, np.array(point.location), values, sizes,
+                                    own_fields))
     return Certificates(regions, tuple(spots), tuple(triples))
 
 

@@ -88,9 +88,9 @@ def corner_theory(problem: AssembledProblem, vertex: int) -> CornerTheory | None
         items.append((angles[first], opening, others[first], others[second], int(k)))
     items.sort(key=lambda item: item[0])
     n = len(items)
-    on_conductor = set()
-    for conductor in problem.conductors:
-        on_conductor.update(w for w, f in facet_of.items() if f in set(conductor.facets.tolist()))
+    others, facets = np.array(list(facet_of.keys())), np.array(list(facet_of.values()))
+    claimed = np.concatenate([c.facets for c in problem.conductors]) if problem.conductors else np.zeros(0, int)
+    on_conductor = set(others[np.isin(facets, claimed)].tolist())
 
     def stops_after(i: int) -> bool:
         here, after = items[i], items[(i + 1) % n]
