@@ -250,13 +250,18 @@ def test_insulation_touching_no_electrode_is_refused(tmp_path, capsys):
     assert "touches no electrode with a fixed potential" in message
 
 
-@pytest.mark.parametrize("line, expected", [
-    ('curved = "false"', r"mesh\.curved = 'false': must be true or false"),
-    ("element_order = true", r"mesh\.element_order = True: must be a whole number"),
-    ("element_order = 2.0", r"mesh\.element_order = 2\.0: must be a whole number"),
+@pytest.mark.parametrize("table, expected", [
+    ('[mesh]\ncurved = "false"', r"mesh\.curved = 'false': must be true or false"),
+    ("[mesh]\nelement_order = true", r"mesh\.element_order = True: must be a whole number"),
+    ("[mesh]\nelement_order = 2.0", r"mesh\.element_order = 2\.0: must be a whole number"),
+    ("[mesh]\nrefinements = -1", r"mesh\.refinements = -1: a whole number from 0 to 6"),
+    ("[mesh]\nrefinements = 9", r"mesh\.refinements = 9: a whole number from 0 to 6"),
+    ('[mesh]\nrefinements = "2"', r"mesh\.refinements = '2': must be a whole number"),
+    ('[solver]\nmethod = "cholesky"', r"solver\.method = 'cholesky': use one of 'auto', 'direct', 'iterative'"),
+    ('[solver]\nmthod = "direct"', r"\[solver\]: unknown key 'mthod'; allowed keys: method"),
 ])
-def test_loose_mesh_values(tmp_path, capsys, line, expected):
-    case = write_case(tmp_path, PLATES_CASE + f"\n[mesh]\n{line}\n")
+def test_loose_table_values(tmp_path, capsys, table, expected):
+    case = write_case(tmp_path, PLATES_CASE + f"\n{table}\n")
     assert re.search(expected, run_expecting_error(tmp_path, capsys, case))
 
 

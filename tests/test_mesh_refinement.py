@@ -6,7 +6,6 @@ Microwave Engineering, 4th ed., Wiley 2012, Table 2.1 (from memory).
 
 from __future__ import annotations
 
-import re
 
 import numpy as np
 import pytest
@@ -17,7 +16,7 @@ from conftest import GEOMETRIES
 from fieldsection import Case, Material, MeshSettings, ScriptGeometry, analyse
 from fieldsection.mesh import _with_facets
 from fieldsection.case import SINGLE_MESH
-from test_bad_input import PLATES_CASE, run_expecting_error, write_case
+
 
 A, B, EPS_R, V = 1e-3, 3e-3, 2.25, 1000.0
 C_EXACT = 2 * np.pi * epsilon_0 * EPS_R / np.log(B / A)  # Pozar, Table 2.1
@@ -65,13 +64,3 @@ def test_facet_tables_are_those_of_the_mesh_library():
     ours = _with_facets(MeshTri1(mesh.p, mesh.t))
     for name in ("facets", "t2f", "f2t"):
         assert np.array_equal(getattr(ours, name), getattr(reference, name)), name
-
-
-@pytest.mark.parametrize("value, expected", [
-    ("-1", r"mesh\.refinements = -1: a whole number from 0 to 6"),
-    ("9", r"mesh\.refinements = 9: a whole number from 0 to 6"),
-    ('"2"', r"mesh\.refinements = '2': must be a whole number"),
-])
-def test_bad_refinements(tmp_path, capsys, value, expected):
-    case = write_case(tmp_path, PLATES_CASE + f"\n[mesh]\nrefinements = {value}\n")
-    assert re.search(expected, run_expecting_error(tmp_path, capsys, case))
