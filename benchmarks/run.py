@@ -32,7 +32,6 @@ import resource
 import sys
 import tempfile
 import time
-from dataclasses import replace
 from datetime import datetime, timezone
 from pathlib import Path
 

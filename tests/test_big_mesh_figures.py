@@ -8,7 +8,6 @@ from memory), and every figure is written.
 
 from __future__ import annotations
 
-import numpy as np
 import pytest
 
 import fieldsection.figures as figures
