@@ -22,7 +22,7 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from scipy.constants import epsilon_0
-from skfem import Basis, BilinearForm, ElementDG, LinearForm
+from skfem import Basis, BilinearForm, ElementDG
 
 from .errors import SolverError
 from .mesh import triangle_areas
@@ -67,11 +67,6 @@ DIRECT_MASS_LIMIT = 300_000
 @BilinearForm
 def _mass(u, v, w):
     return u * v
-
-
-@LinearForm
-def _load(v, w):
-    return w.f * v
 
 
 def _values(basis: Basis, coefficients: np.ndarray) -> np.ndarray:
