@@ -175,6 +175,7 @@ def _build(result: SectionResult) -> dict[str, Any]:
             "outer_boundary_meaning": OUTER_BOUNDARY_KINDS[case.outer_boundary],
             "hotspot_fraction": case.hotspot_fraction,
             "element_order": case.mesh.element_order,
+            "uniform_refinements": case.mesh.refinements,
         },
         "mesh": {
             "vertices": int(mesh.nvertices),
@@ -311,7 +312,7 @@ def _build(result: SectionResult) -> dict[str, Any]:
                 for c in result.corona
             ],
         },
-        "solver": {"method": "sparse LU (SuperLU), one factorisation for all conductors",
+        "solver": {"requested": case.solver, "used": result.solution.solver,
                    "relative_residual": result.solution.relative_residual},
         "notes": list(problem.notes),
         "stage_seconds": result.stage_seconds,
