@@ -68,6 +68,8 @@ class SectionResult:
 
 @dataclass(frozen=True)
 class _Pass:
+    """One pass of the loop; once a newer pass exists only ``record`` is kept (the rest is None)."""
+
     section: SectionMesh
     problem: AssembledProblem
     solution: Solution
@@ -99,7 +101,7 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
     while True:
         current = _one_pass(case, size_field, stage)
         if passes:
-            overshoot = current.problem.ndofs / (passes[-1].problem.ndofs * growth)
+            overshoot = current.problem.ndofs / (passes[-1].record.ndofs * growth)
         if passes and current.problem.ndofs > settings.max_dofs:
             # gmsh made more elements than asked: ask for fewer, or stop at the budget
             growth *= 0.9 * settings.max_dofs / current.problem.ndofs
@@ -110,6 +112,8 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
                                                               passes[-1].recovery.refinement_indicator,
                                                               case.mesh.element_order, growth))
             continue
+        if passes:  # an earlier pass lives on as its record only: its mesh, matrix and fields are freed
+            passes[-1] = _Pass(None, None, None, None, None, None, None, passes[-1].record)
         passes.append(current)
         if not settings.adaptive:
             break
