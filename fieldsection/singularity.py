@@ -33,10 +33,6 @@ class CornerTheory:
     n_materials: int  # number of dielectric wedges of different permittivity in it
 
     @property
-    def singular(self) -> bool:
-        return self.exponent < -1e-6
-
-    @property
     def singular_enough(self) -> bool:
         """Singular beyond the slight re-entrance of a curve drawn with few segments."""
         return self.exponent < SINGULAR_EXPONENT
@@ -88,9 +84,9 @@ def corner_theory(problem: AssembledProblem, vertex: int) -> CornerTheory | None
         items.append((angles[first], opening, others[first], others[second], int(k)))
     items.sort(key=lambda item: item[0])
     n = len(items)
-    others, facets = np.array(list(facet_of.keys())), np.array(list(facet_of.values()))
+    neighbours, facets = np.array(list(facet_of.keys())), np.array(list(facet_of.values()))
     claimed = np.concatenate([c.facets for c in problem.conductors]) if problem.conductors else np.zeros(0, int)
-    on_conductor = set(others[np.isin(facets, claimed)].tolist())
+    on_conductor = set(neighbours[np.isin(facets, claimed)].tolist())
 
     def stops_after(i: int) -> bool:
         here, after = items[i], items[(i + 1) % n]
