@@ -10,9 +10,9 @@ allowed stress, and the value is never presented as the peak field.
 The radius advice is a scaling estimate (common practice, no source): near a corner the field follows
 c r^s (c fitted on the last mesh between 4 and 16 element sizes from the corner, the largest over
 directions); a rounding of radius rho removes the singularity and leaves a surface field of order
-c rho^s, so rho = (E_allowed / c)^(1/s). Draw the radius and re-run to confirm. No radius is advised when rho
-would exceed the element sizes the power law was measured on: the field is too high even away from
-the corner, and the stress itself must come down.
+c rho^s, so rho = (E_allowed / c)^(1/s). Draw the radius and re-run to confirm. No radius is
+advised when rho would exceed the element sizes the power law was measured on: the field is too
+high even away from the corner, and the stress itself must come down.
 """
 
 from __future__ import annotations
@@ -46,6 +46,8 @@ class PeakCertificate:
 
 def measured_exponent(values: list[float], sizes: list[float]) -> float | None:
     """Least-squares slope of log(value) against log(size) over the last three passes; None if h did not shrink."""
+    if min(values[-3:]) <= 0:
+        return None
     v, h = np.log(values[-3:]), np.log(sizes[-3:])
     if len(v) < 2 or h.max() - h.min() < np.log(1.3):
         return None
