@@ -50,10 +50,10 @@ def gradient_at_vertices(solution: Solution, dof_vector: np.ndarray) -> np.ndarr
     """grad(u) at each element's vertices, shape (nelements, 3, 2)."""
     problem = solution.problem
     basis = Basis(problem.section.mesh, problem.basis.elem, quadrature=(_VERTICES, np.full(3, 1 / 6)))
-    return np.moveaxis(_gradient(basis, dof_vector), 0, -1)
+    return np.moveaxis(gradient_at_points(basis, dof_vector), 0, -1)
 
 
-def _gradient(basis: Basis, u: np.ndarray) -> np.ndarray:
+def gradient_at_points(basis: Basis, u: np.ndarray) -> np.ndarray:
     """grad(u) at the basis's quadrature points, shape (2, nelements, npoints).
 
     The sum over the element's basis functions that ``basis.interpolate`` does, without the values
@@ -98,7 +98,7 @@ def outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.nd
         points = start[:, None] + direction[:, None] * _GAUSS_S[None, :]
         tind = elements[on_edge]
         basis = Basis(mesh, problem.basis.elem, quadrature=(points, _GAUSS_W), elements=tind)
-        grad = _gradient(basis, solution.potential)  # (2, n, q)
+        grad = gradient_at_points(basis, solution.potential)  # (2, n, q)
         jacobian = basis.mapping.DF(points, tind=tind)  # (2, 2, n, q)
         tangent = np.einsum("ijnq,j->inq", jacobian, direction)  # dx/ds, |.| is the length element
         normal = np.stack([tangent[1], -tangent[0]])

@@ -25,6 +25,7 @@ from scipy.constants import epsilon_0
 from skfem import Basis, BilinearForm, ElementDG
 
 from .errors import SolverError
+from .fields import gradient_at_points
 from .mesh import triangle_areas
 from .problem import weighted_permittivity
 from .solve import Solution
@@ -70,15 +71,10 @@ def _mass(u, v, w):
 
 
 def _values(basis: Basis, coefficients: np.ndarray) -> np.ndarray:
-    """sum_j c_j phi_j at the quadrature points, (nelements, nqp) (skfem's interpolate re-splits every call)."""
+    """sum_j c_j phi_j at the quadrature points, (nelements, nqp): the values beside
+    ``fields.gradient_at_points`` (scikit-fem's interpolate re-splits its indices on every call)."""
     dofs = basis.element_dofs
     return sum(coefficients[dofs[j]][:, None] * np.asarray(basis.basis[j][0]) for j in range(dofs.shape[0]))
-
-
-def _gradient(basis: Basis, coefficients: np.ndarray) -> np.ndarray:
-    """grad of sum_j c_j phi_j at the quadrature points, (2, nelements, nqp)."""
-    dofs = basis.element_dofs
-    return sum(coefficients[dofs[j]][None, :, None] * basis.basis[j][0].grad for j in range(dofs.shape[0]))
 
 
 class _Projector:
@@ -120,7 +116,7 @@ class _Projector:
 
     def field(self, potential: np.ndarray) -> np.ndarray:
         """E_h = -grad u at the quadrature points, (2, nelements, nqp); zero in meshed conductors."""
-        E_h = -_gradient(self.basis, potential)
+        E_h = -gradient_at_points(self.basis, potential)
         E_h[:, ~self.problem.dielectric] = 0.0
         return E_h
 
