@@ -17,7 +17,7 @@ import numpy as np
 from skfem import MeshTri1
 
 from .fields import ElementFields
-from .mesh import triangle_areas
+from .mesh import fit_circle, triangle_areas
 from .problem import AssembledProblem
 
 #: standard atmosphere, Pa
@@ -100,11 +100,8 @@ def screen_corona(problem: AssembledProblem, magnitude: np.ndarray, pressure: fl
         if conductor.facets.size < 6:
             continue
         vertices = np.unique(mesh.facets[:, conductor.facets])
-        xy = mesh.p[:, vertices].T
-        design = np.column_stack([2 * xy, np.ones(len(xy))])
-        (a, b, c), *_ = np.linalg.lstsq(design, (xy**2).sum(axis=1), rcond=None)
-        radius = math.sqrt(c + a * a + b * b)
-        if np.abs(np.hypot(*(xy - [a, b]).T) - radius).max() > 1e-3 * radius:
+        _, radius, deviation = fit_circle(mesh.p[:, vertices].T)
+        if deviation > 1e-3 * radius:
             continue  # not round
         in_air = air[section.region_of_element[conductor.facet_dielectric_element]]
         if not in_air.any():

@@ -141,6 +141,16 @@ _NOT_A_CIRCLE = (
 )
 
 
+def fit_circle(xy: np.ndarray) -> tuple[np.ndarray, float, float]:
+    """Centre, radius and largest distance off the circle of points ``xy`` (n, 2), by the algebraic
+    (Kasa) least-squares fit x^2 + y^2 = 2 a x + 2 b y + c."""
+    design = np.column_stack([2 * xy, np.ones(len(xy))])
+    (a, b, c), *_ = np.linalg.lstsq(design, (xy**2).sum(axis=1), rcond=None)
+    centre = np.array([a, b])
+    radius = float(np.sqrt(c + a * a + b * b))
+    return centre, radius, float(np.abs(np.hypot(*(xy - centre).T) - radius).max())
+
+
 def find_open_circle(raw: RawMesh, closed_curves: frozenset[str], axisymmetric: bool = False) -> OpenCircle:
     """The part of the boundary not in ``closed_curves`` (electrodes, insulated curves): a circle or an arc.
 
@@ -161,14 +171,10 @@ def find_open_circle(raw: RawMesh, closed_curves: frozenset[str], axisymmetric: 
                         "outer boundary as a circle around the section")
     vertices = np.unique(edges)
     xy = raw.points[vertices]
-    # algebraic (Kasa) circle fit: x^2 + y^2 = 2 a x + 2 b y + c
-    design = np.column_stack([2 * xy, np.ones(len(xy))])
-    (a, b, c), *_ = np.linalg.lstsq(design, (xy**2).sum(axis=1), rcond=None)
-    centre = np.array([a, b])
-    radius = float(np.sqrt(c + a * a + b * b))
+    centre, radius, deviation = fit_circle(xy)
     degree = np.bincount(edges.ravel(), minlength=n)[vertices]
     ends = vertices[degree == 1]
-    on_circle = np.abs(np.hypot(*(xy - centre).T) - radius).max() <= 1e-6 * radius
+    on_circle = deviation <= 1e-6 * radius
     if not on_circle or len(xy) < 8 or (degree > 2).any() or len(ends) not in (0, 2):
         raise MeshError(_NOT_A_CIRCLE)
     if np.hypot(*(raw.points - centre).T).max() > radius * (1 + 1e-6):
