@@ -16,7 +16,7 @@ import numpy as np
 from scipy.spatial import cKDTree
 
 from .gmsh_adapter import SizeField
-from .mesh import SectionMesh, triangle_areas
+from .mesh import SectionMesh, largest_at_vertices, triangle_areas
 
 FINEST_STEP, COARSEST_STEP = 0.25, 2.0
 
@@ -96,12 +96,8 @@ def region_vertex_fields(section: SectionMesh, magnitude: np.ndarray, regions: l
     out = {}
     for name in regions:  # a handful of regions; each step below is vectorised
         elements = section.elements_of(name)
-        vertices = mesh.t[:, elements].T.ravel()
-        values = magnitude[elements].ravel()
-        order = np.lexsort((values, vertices))
-        last = np.r_[np.flatnonzero(np.diff(vertices[order])), order.size - 1]
-        ids = vertices[order][last]
-        out[name] = RegionVertexField(mesh.p[:, ids].T.copy(), values[order][last], sizes[ids])
+        ids, values, _ = largest_at_vertices(mesh, elements, magnitude[elements])
+        out[name] = RegionVertexField(mesh.p[:, ids].T.copy(), values, sizes[ids])
     return out
 
 

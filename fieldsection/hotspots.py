@@ -13,6 +13,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
+from .mesh import largest_at_vertices
 from .problem import AssembledProblem
 
 
@@ -129,17 +130,12 @@ def find_triple_points(problem: AssembledProblem, magnitude: np.ndarray) -> tupl
     n = mesh.nvertices
     corners = mesh.t.T  # (nelements, 3)
 
-    def largest_at_vertices(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Per vertex: largest |E| over the masked elements touching it, and the element giving it."""
-        value = np.full(n, -1.0)
-        rows = np.repeat(np.flatnonzero(mask), 3)
-        cols = corners[mask].ravel()
-        vals = magnitude[mask].ravel()
-        order = np.lexsort((vals, cols))  # per vertex, the largest value last
-        last = np.r_[np.flatnonzero(np.diff(cols[order])), order.size - 1] if order.size else order
-        value[cols[order][last]] = vals[order][last]
-        element = np.full(n, -1)
-        element[cols[order][last]] = rows[order][last]
+    def largest_at(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Per vertex: largest |E| over the masked elements touching it (-1: none), and the element giving it."""
+        elements = np.flatnonzero(mask)
+        ids, values, giving = largest_at_vertices(mesh, elements, magnitude[elements])
+        value, element = np.full(n, -1.0), np.full(n, -1)
+        value[ids], element[ids] = values, giving
         return value, element
 
     # only conductor vertices are asked for: only the elements touching one take part
@@ -147,8 +143,8 @@ def find_triple_points(problem: AssembledProblem, magnitude: np.ndarray) -> tupl
     for conductor in problem.conductors:
         on_conductor[mesh.facets[:, conductor.facets].ravel()] = True
     touching = on_conductor[corners].any(axis=1)
-    gas_E, gas_element = largest_at_vertices(touching & (element_kind == "gas"))
-    solid_E, solid_element = largest_at_vertices(touching & ((element_kind == "solid") | (element_kind == "liquid")))
+    gas_E, gas_element = largest_at(touching & (element_kind == "gas"))
+    solid_E, solid_element = largest_at(touching & ((element_kind == "solid") | (element_kind == "liquid")))
     points = []
     for conductor in problem.conductors:
         if conductor.facets.size == 0:

@@ -322,6 +322,18 @@ def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> S
                        np.unique(geometry_corners[geometry_corners >= 0]))
 
 
+def largest_at_vertices(mesh: MeshTri1 | MeshTri2, elements: np.ndarray, values: np.ndarray
+                        ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Over ``elements`` (k,) with ``values`` (k, 3) at their vertices: every vertex they touch, the
+    largest value there, and the element that gives it."""
+    vertices = mesh.t[:, elements].T.ravel()
+    flat = values.ravel()
+    order = np.lexsort((flat, vertices))  # per vertex, the largest value last
+    last = np.r_[np.flatnonzero(np.diff(vertices[order])), order.size - 1] if order.size else order
+    picked = order[last]
+    return vertices[picked], flat[picked], np.repeat(elements, 3)[picked]
+
+
 def triangle_areas(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
     """Area of each element's straight-sided (corner) triangle, m^2."""
     p, t = mesh.p, mesh.t
