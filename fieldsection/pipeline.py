@@ -65,6 +65,13 @@ class SectionResult:
     stop_reason: str = ""
     corona: tuple[CoronaCheck, ...] = ()
 
+    @property
+    def peak_search_field(self) -> np.ndarray:
+        """|E| at element vertices (nelements, 3), V/m: the field the peaks and hotspots were found on."""
+        if self.recovery is None:
+            return self.fields.E_magnitude
+        return self.recovery.peak_search_field(self.fields.E_magnitude, self.problem.element_order)
+
 
 @dataclass(frozen=True)
 class _Pass:
@@ -77,6 +84,7 @@ class _Pass:
     charges: ChargeResult
     capacitance: CapacitanceResult
     recovery: Recovery
+    magnitude: np.ndarray  # |E| at element vertices for the peak search (``Recovery.peak_search_field``)
     record: PassRecord
 
 
@@ -98,6 +106,12 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
     stop_reason = "adaptive refinement is off: one mesh" if not settings.adaptive else ""
     growth = GROWTH_PER_PASS
     overshoot = FIRST_OVERSHOOT  # DOFs gmsh delivers / DOFs asked for, learnt from the passes so far
+    peaks: tuple[HotspotResult, Certificates] | None = None  # of the last pass, once checked
+
+    def refine(source: _Pass):
+        return stage("refine", lambda: wanted_sizes(source.section, source.recovery.refinement_indicator,
+                                                    case.mesh.element_order, growth))
+
     while True:
         current = _one_pass(case, size_field, stage)
         if passes:
@@ -108,18 +122,19 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
             if growth * overshoot < 1.15:
                 stop_reason = f"DOF budget of {settings.max_dofs} spent"
                 break
-            size_field = stage("refine", lambda: wanted_sizes(passes[-1].section,
-                                                              passes[-1].recovery.refinement_indicator,
-                                                              case.mesh.element_order, growth))
+            size_field = refine(passes[-1])
             continue
         if passes:  # an earlier pass lives on as its record only: its mesh, matrix and fields are freed
-            passes[-1] = _Pass(None, None, None, None, None, None, None, passes[-1].record)
+            passes[-1] = _Pass(None, None, None, None, None, None, None, None, passes[-1].record)
         passes.append(current)
+        peaks = None
         if not settings.adaptive:
             break
-        if len(passes) >= 2 and _settled(case, passes):
-            stop_reason = f"converged in {len(passes)} passes"
-            break
+        if len(passes) >= 2:
+            settled, peaks = stage("convergence", lambda: _settled(case, passes))
+            if settled:
+                stop_reason = f"converged in {len(passes)} passes"
+                break
         if len(passes) >= settings.max_passes:
             stop_reason = f"pass limit of {settings.max_passes} reached"
             break
@@ -128,16 +143,17 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
             stop_reason = f"DOF budget of {settings.max_dofs} spent"
             break
         growth = target / overshoot
-        size_field = stage("refine", lambda: wanted_sizes(current.section, current.recovery.refinement_indicator,
-                                                          case.mesh.element_order, growth))
+        size_field = refine(current)
 
     last = passes[-1]
     problem = last.problem
-    magnitude = last.recovery.peak_search_field(last.fields.E_magnitude, problem.element_order)
-    hotspots = stage("hotspots", lambda: find_hotspots(problem, magnitude, case.hotspot_fraction))
+    if peaks is None:
+        hotspots = stage("hotspots", lambda: find_hotspots(problem, last.magnitude, case.hotspot_fraction))
+        certificates = stage("certificates", lambda: _certify_all(case, passes, hotspots))
+    else:  # the convergence check of the last pass found them already
+        hotspots, certificates = peaks
     gas_gaps = stage("gas gaps", lambda: screen_gas_gaps(problem, last.fields, case.gas_pressure))
-    corona = stage("corona", lambda: screen_corona(problem, magnitude, case.gas_pressure))
-    certificates = stage("certificates", lambda: _certify_all(case, passes, hotspots))
+    corona = stage("corona", lambda: screen_corona(problem, last.magnitude, case.gas_pressure))
     return SectionResult(case, last.section, problem, last.solution, last.fields, last.charges, last.capacitance,
                          hotspots, gas_gaps, seconds, last.recovery, tuple(p.record for p in passes), certificates,
                          stop_reason, corona)
@@ -153,37 +169,37 @@ def _one_pass(case: Case, size_field: SizeField | None, stage) -> _Pass:
     section = stage("convert mesh", lambda: build_section_mesh(raw, circle))
     problem = stage("assemble", lambda: assemble(case, section))
     if size_field is not None and problem.ndofs > case.refinement.max_dofs:
-        return _Pass(section, problem, None, None, None, None, None, None)  # over budget: not solved
+        return _Pass(section, problem, None, None, None, None, None, None, None)  # over budget: not solved
     solution = stage("solve", lambda: solve(problem, case.solver))
     fields = stage("fields", lambda: element_fields(solution))
     recovery = stage("recovery", lambda: recover_field(solution, case.refinement.adaptive))
     charges = stage("charges", lambda: compute_charges(solution, fields))
     capacitance = stage("capacitance", lambda: compute_capacitance(solution, fields, charges))
-    regions = list(problem.material_of_region)
-    vertex_fields = region_vertex_fields(section, recovery.peak_search_field(fields.E_magnitude, problem.element_order),
-                                         regions)
+    magnitude = recovery.peak_search_field(fields.E_magnitude, problem.element_order)
+    vertex_fields = region_vertex_fields(section, magnitude, list(problem.material_of_region))
     record = PassRecord(problem.ndofs, section.mesh.nelements, capacitance.maxwell_from_charge,
                         capacitance.energy_per_length, recovery.estimated_error,
                         {name: float(v.values.max()) for name, v in vertex_fields.items()}, vertex_fields,
                         time.perf_counter() - start)
-    return _Pass(section, problem, solution, fields, charges, capacitance, recovery, record)
+    return _Pass(section, problem, solution, fields, charges, capacitance, recovery, magnitude, record)
 
 
-def _settled(case: Case, passes: list[_Pass]) -> bool:
-    """Capacitance settled (and small by the indicator's own estimate), and every peak (per region, per
-    hotspot, at each triple point) settled or found singular."""
+def _settled(case: Case, passes: list[_Pass]) -> tuple[bool, tuple[HotspotResult, Certificates] | None]:
+    """Whether the capacitance has settled (and is small by the indicator's own estimate) and every peak
+    (per region, per hotspot, at each triple point) has settled or been found singular; with the hotspots
+    and certificates of the last pass when they were looked at."""
     before, now = passes[-2].record, passes[-1].record
     scale = np.abs(np.diag(now.capacitance)).max()
     tolerance = case.refinement.capacitance_tolerance
     if np.abs(now.capacitance - before.capacitance).max() > tolerance * scale:
-        return False
+        return False, None
     if now.estimated_error ** 2 > tolerance:  # (energy-norm error)^2 ~ relative error of the capacitance
-        return False
+        return False, None
     last = passes[-1]
-    magnitude = last.recovery.peak_search_field(last.fields.E_magnitude, last.problem.element_order)
-    certificates = _certify_all(case, passes, find_hotspots(last.problem, magnitude, case.hotspot_fraction))
+    hotspots = find_hotspots(last.problem, last.magnitude, case.hotspot_fraction)
+    certificates = _certify_all(case, passes, hotspots)
     every = [*certificates.regions.values(), *certificates.hotspots, *certificates.triple_points]
-    return all(c.status != "not converged" for c in every)
+    return all(c.status != "not converged" for c in every), (hotspots, certificates)
 
 
 def _certify_regions(case: Case, passes: list[_Pass], tree: cKDTree, own_fields: dict | None
@@ -270,5 +286,5 @@ def _certify_all(case: Case, passes: list[_Pass], hotspots: HotspotResult) -> Ce
 
 
 STAGES = ("mesh", "open space", "convert mesh", "assemble", "solve", "fields", "recovery", "charges", "capacitance",
-          "refine", "hotspots", "gas gaps", "corona", "certificates")
+          "refine", "convergence", "hotspots", "certificates", "gas gaps", "corona")
 __all__ = ["SINGULAR", "STAGES", "Certificates", "SectionResult", "analyse"]

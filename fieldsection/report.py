@@ -67,9 +67,7 @@ def write_report(
         if with_figures:
             from . import figures as fig  # matplotlib is slow to import: only when drawing
 
-            magnitude = None  # the recovered field, as the hotspots were found on it
-            if result.recovery is not None:
-                magnitude = result.recovery.peak_search_field(result.fields.E_magnitude, result.problem.element_order)
+            magnitude = result.peak_search_field  # as the hotspots were found on it
 
             plots = [
                 ("regions.png", "Regions, materials, electrodes and mesh", lambda p: fig.plot_regions(result.problem, p)),
