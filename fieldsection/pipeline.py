@@ -232,7 +232,7 @@ def _certificate(case: Case, passes: list[_Pass], tree: cKDTree, region: str, po
         own = own_fields[region].peak_near(point, 1e-9 * float(np.ptp(section.mesh.p)))
         if own is not None and values[-1] > 0:
             single_mesh_error = abs(own[0] - values[-1]) / values[-1]
-    largest = max(float(v.values.max()) for v in last.record.vertex_fields.values())
+    largest = max(last.record.region_peaks.values())
     constant = None
     if theory is not None and theory.singular_enough:
         constant = _corner_constant(last.record.vertex_fields[region], section.mesh.p[:, corner], sizes[-1],
