@@ -209,9 +209,8 @@ def _certify_regions(case: Case, passes: list[_Pass], tree: cKDTree, own_fields:
     for name in problem.material_of_region:
         field_now = passes[-1].record.vertex_fields[name]
         k = int(np.argmax(field_now.values))
-        history = [p.record.vertex_fields[name] for p in passes]
-        values = [float(v.values.max()) for v in history]
-        sizes = [float(v.sizes[int(np.argmax(v.values))]) for v in history]
+        values = [p.record.region_peaks[name] for p in passes]
+        sizes = [float(f.sizes[int(np.argmax(f.values))]) for f in (p.record.vertex_fields[name] for p in passes)]
         out[name] = _certificate(case, passes, tree, name, field_now.points[k], values, sizes, own_fields)
     return out
 
