@@ -23,6 +23,7 @@ import numpy as np
 from .case import BuilderGeometry, MeshSettings, ScriptGeometry
 from .errors import GeometryError, MeshError
 from .geometry import screen_script
+from .splitting import split_into_four, with_mid_edge_nodes
 
 #: seconds one meshing may take before it is stopped (a mistyped size can ask for billions of elements)
 MESHING_TIME_LIMIT = 3600.0
@@ -30,7 +31,7 @@ MESHING_TIME_LIMIT = 3600.0
 SMALLEST_RELATIVE_SIZE = 1e-7
 
 # gmsh element type codes (see gmsh's documentation, "MSH file format")
-_LINE2, _LINE3, _TRI3, _TRI6 = 1, 8, 2, 9
+_LINE2, _TRI3 = 1, 2
 
 
 @dataclass(frozen=True)
@@ -353,16 +354,10 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
             f"Physical Surface(\"my_region\") = {{{loose[0]}}}; and map it in [regions] (or make it a hole)"
         )
     _apply_sizes(gmsh, settings, scale, surfaces, curves, electrode_names & (set(surfaces) | set(curves)), size_field)
-    if settings.refinements:  # mesh coarser by 2**k, then split each triangle into four, k times
+    if settings.refinements:  # mesh coarser by 2**k here, then split each triangle into four, k times
         gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**settings.refinements)
     try:
         gmsh.model.mesh.generate(2)
-        for _ in range(settings.refinements):
-            # gmsh places the new nodes of boundary edges on the geometry's curves, so arcs stay arcs
-            gmsh.model.mesh.refine()
-        curved = settings.curved
-        if curved:
-            gmsh.model.mesh.setOrder(2)
     except Exception as exc:
         raise MeshError(f"gmsh could not mesh the geometry: {exc}; check for overlapping or open curves") from None
     errors = _gmsh_messages(gmsh, "Error")
@@ -385,42 +380,48 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
     index_of[node_tags] = np.arange(node_tags.size)
 
     tri_blocks: list[np.ndarray] = []
-    entity_rows: dict[int, np.ndarray] = {}
+    entity_rows: dict[int, tuple[int, int]] = {}
     start = 0
-    want = _TRI6 if curved else _TRI3
-    width = 6 if curved else 3
     for _, entity in gmsh.model.getEntities(2):
         types, _, nodes = gmsh.model.mesh.getElements(2, entity)
-        block = np.zeros((0, width), dtype=np.int64)
+        block = np.zeros((0, 3), dtype=np.int64)
         for etype, enodes in zip(types, nodes):
-            if etype != want:
+            if etype != _TRI3:
                 raise MeshError(
                     f"surface {entity} was meshed with gmsh element type {etype}; only triangles are supported "
                     "(remove Recombine / quadrangle settings from the script)"
                 )
-            block = index_of[enodes.astype(np.int64)].reshape(-1, width)
+            block = index_of[enodes.astype(np.int64)].reshape(-1, 3)
         tri_blocks.append(block)
-        entity_rows[entity] = np.arange(start, start + len(block))
+        entity_rows[entity] = (start, start + len(block))
         start += len(block)
-    triangles = np.concatenate(tri_blocks) if tri_blocks else np.zeros((0, width), dtype=np.int64)
+    triangles = np.concatenate(tri_blocks) if tri_blocks else np.zeros((0, 3), dtype=np.int64)
     if len(triangles) == 0:
         raise MeshError("gmsh produced no triangles; check the mesh sizes and the surfaces")
+    entity_segments: dict[int, np.ndarray] = {}
+    for _, entity in gmsh.model.getEntities(1):
+        segments = [index_of[enodes.astype(np.int64)].reshape(-1, 2)
+                    for etype, enodes in zip(*gmsh.model.mesh.getElements(1, entity)[::2]) if etype == _LINE2]
+        entity_segments[entity] = np.concatenate(segments) if segments else np.zeros((0, 2), dtype=np.int64)
+
+    def snap(entity: int, points: np.ndarray) -> np.ndarray:
+        if gmsh.model.getType(1, entity) == "Line":  # the chord's midpoint is exact; gmsh's projection is iterative
+            return points
+        return gmsh.model.getClosestPoint(1, entity, points.ravel())[0].reshape(-1, 3)
+
+    # splitting in numpy (with gmsh's projection onto the curves) is much cheaper than gmsh's refine
+    for _ in range(settings.refinements):
+        coords, triangles, entity_segments = split_into_four(coords, triangles, entity_segments, snap)
+    entity_rows = {e: (a * 4**settings.refinements, b * 4**settings.refinements) for e, (a, b) in entity_rows.items()}
+    if settings.curved:
+        coords, triangles = with_mid_edge_nodes(coords, triangles, entity_segments, snap)
 
     surface_groups = {
-        name: np.concatenate([entity_rows[e] for e in tags]) if tags else np.zeros(0, dtype=np.int64)
+        name: np.concatenate([np.arange(*entity_rows[e]) for e in tags]) if tags else np.zeros(0, dtype=np.int64)
         for name, tags in surfaces.items()
     }
-    curve_groups: dict[str, np.ndarray] = {}
-    for name, tags in curves.items():
-        segments = []
-        for entity in tags:
-            types, _, nodes = gmsh.model.mesh.getElements(1, entity)
-            for etype, enodes in zip(types, nodes):
-                per = 3 if etype == _LINE3 else 2
-                if etype not in (_LINE2, _LINE3):
-                    continue
-                segments.append(index_of[enodes.astype(np.int64)].reshape(-1, per)[:, :2])
-        curve_groups[name] = np.concatenate(segments) if segments else np.zeros((0, 2), dtype=np.int64)
+    curve_groups = {name: np.concatenate([entity_segments[e] for e in tags]) if tags else np.zeros((0, 2), dtype=np.int64)
+                    for name, tags in curves.items()}
     corner_tags = []
     for _, point in gmsh.model.getEntities(0):  # the geometry's points: few
         curves, _ = gmsh.model.getAdjacencies(0, point)

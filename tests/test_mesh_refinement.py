@@ -64,3 +64,36 @@ def test_facet_tables_are_those_of_the_mesh_library():
     ours = _with_facets(MeshTri1(mesh.p, mesh.t))
     for name in ("facets", "t2f", "f2t"):
         assert np.array_equal(getattr(ours, name), getattr(reference, name)), name
+
+
+def test_splitting_quarters_every_triangle_and_keeps_its_orientation():
+    from fieldsection.splitting import split_into_four, with_mid_edge_nodes
+
+    # midpoint subdivision: the four children of a triangle are similar to it at half scale, so each
+    # has a quarter of its area (elementary geometry); a square in two triangles, one side on a "curve"
+    points = np.array([[0.0, 0.0, 0.0], [1.0, 0.0, 0.0], [1.0, 1.0, 0.0], [0.0, 1.0, 0.0]])
+    triangles = np.array([[0, 1, 2], [0, 2, 3]])
+    lifted = []
+
+    def snap(entity, xyz):
+        lifted.append(entity)
+        return xyz + [0.0, -0.1, 0.0]  # a bulge below the bottom side
+
+    def signed_areas(p, t):
+        d1, d2 = p[t[:, 1], :2] - p[t[:, 0], :2], p[t[:, 2], :2] - p[t[:, 0], :2]
+        return 0.5 * (d1[:, 0] * d2[:, 1] - d1[:, 1] * d2[:, 0])
+
+    p, t, segments = split_into_four(points, triangles, {7: np.array([[0, 1]]), 8: np.array([[0, 5]])}, snap)
+    assert lifted == [7]  # entity 8 is no triangle side: left as it was
+    assert len(p) == 4 + 5 and len(t) == 8  # 5 edges, one new node each (Euler: V - E + F = 1)
+    assert segments[7].tolist()[0][0] == 0 and segments[7].tolist()[-1][-1] == 1 and len(segments[7]) == 2
+    np.testing.assert_array_equal(segments[8], [[0, 5]])
+    middle = segments[7][0, 1]
+    np.testing.assert_allclose(p[middle], [0.5, -0.1, 0.0])
+    straight = split_into_four(points, triangles, {}, snap)
+    areas = signed_areas(straight[0], straight[1]).reshape(2, 4)
+    np.testing.assert_allclose(areas, np.repeat(signed_areas(points, triangles)[:, None] / 4, 4, axis=1), rtol=1e-14)
+    p6, t6 = with_mid_edge_nodes(points, triangles, {7: np.array([[1, 0]])}, snap)
+    assert t6.shape == (2, 6) and len(p6) == 9
+    np.testing.assert_allclose(p6[t6[0, 3]], [0.5, -0.1, 0.0])  # edge (0, 1) of triangle 0, on the curve
+    np.testing.assert_allclose(p6[t6[0, 4]], [1.0, 0.5, 0.0])  # edge (1, 2): a chord's midpoint
