@@ -10,8 +10,9 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.constants import epsilon_0
-from skfem import Basis
+from skfem import Basis, MeshTri1
 
+from .mesh import linear_gradients
 from .solve import Solution
 
 # reference-triangle vertices, in the order of the mesh's element-to-vertex table
@@ -47,10 +48,19 @@ class ElementFields:
 
 
 def gradient_at_vertices(solution: Solution, dof_vector: np.ndarray) -> np.ndarray:
-    """grad(u) at each element's vertices, shape (nelements, 3, 2)."""
+    """grad(u) at each element's vertices, shape (nelements, 3, 2); for linear elements on straight
+    triangles (constant in each) a read-only view of shape (nelements, 1, 2) broadcast to that."""
     problem = solution.problem
-    basis = Basis(problem.section.mesh, problem.basis.elem, quadrature=(_VERTICES, np.full(3, 1 / 6)))
+    mesh = problem.section.mesh
+    if _is_linear(problem):
+        gradient = np.einsum("vn,vcn->nc", dof_vector[mesh.t], linear_gradients(mesh))[:, None, :]
+        return np.broadcast_to(gradient, (mesh.nelements, 3, 2))
+    basis = Basis(mesh, problem.basis.elem, quadrature=(_VERTICES, np.full(3, 1 / 6)))
     return np.moveaxis(gradient_at_points(basis, dof_vector), 0, -1)
+
+
+def _is_linear(problem) -> bool:
+    return problem.element_order == 1 and isinstance(problem.section.mesh, MeshTri1)
 
 
 def gradient_at_points(basis: Basis, u: np.ndarray) -> np.ndarray:
@@ -65,12 +75,16 @@ def gradient_at_points(basis: Basis, u: np.ndarray) -> np.ndarray:
 
 def element_fields(solution: Solution) -> ElementFields:
     problem = solution.problem
-    E = -gradient_at_vertices(solution, solution.potential)
+    gradient = gradient_at_vertices(solution, solution.potential)
+    if _is_linear(problem):  # constant in each element: compute once per element, broadcast to the vertices
+        gradient = gradient[:, :1]
     er = problem.relative_permittivity[:, None, None]
     # conductor regions carry no field: their DOFs are all fixed, so E is 0 there up to round-off
-    E = np.where(problem.dielectric[:, None, None], E, 0.0)
+    E = np.where(problem.dielectric[:, None, None], -gradient, 0.0)
     D = epsilon_0 * er * E
     P = D - epsilon_0 * E
+    if _is_linear(problem):
+        E, D, P = (np.broadcast_to(a, (len(a), 3, 2)) for a in (E, D, P))
     u = solution.potential
     energy = 0.5 * float(u @ (problem.stiffness @ u))
     return ElementFields(E, D, P, energy)

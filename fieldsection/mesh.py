@@ -334,12 +334,26 @@ def largest_at_vertices(mesh: MeshTri1 | MeshTri2, elements: np.ndarray, values:
     return vertices[picked], flat[picked], np.repeat(elements, 3)[picked]
 
 
+def _corner_sides(mesh: MeshTri1 | MeshTri2) -> tuple[np.ndarray, np.ndarray]:
+    """Per element, the corner triangle's sides p1 - p0 and p2 - p0, each (2, nelements)."""
+    x, y, t = mesh.p[0], mesh.p[1], mesh.t  # one coordinate row at a time: 2D fancy indexing is ~5x slower
+    x0, y0 = x[t[0]], y[t[0]]
+    return np.array([x[t[1]] - x0, y[t[1]] - y0]), np.array([x[t[2]] - x0, y[t[2]] - y0])
+
+
 def triangle_areas(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
     """Area of each element's straight-sided (corner) triangle, m^2."""
-    p, t = mesh.p, mesh.t
-    d1 = p[:, t[1]] - p[:, t[0]]
-    d2 = p[:, t[2]] - p[:, t[0]]
+    d1, d2 = _corner_sides(mesh)
     return 0.5 * np.abs(d1[0] * d2[1] - d1[1] * d2[0])
+
+
+def linear_gradients(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
+    """Gradients of the three barycentric coordinates of each corner triangle, (3 vertices, 2, nelements), 1/m."""
+    d1, d2 = _corner_sides(mesh)
+    det = d1[0] * d2[1] - d1[1] * d2[0]
+    g1 = np.array([d2[1], -d2[0]]) / det
+    g2 = np.array([-d1[1], d1[0]]) / det
+    return np.array([-g1 - g2, g1, g2])
 
 
 def _check_quality(mesh: MeshTri1 | MeshTri2) -> None:

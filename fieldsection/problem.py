@@ -17,7 +17,7 @@ from skfem import Basis, ElementTriP1, ElementTriP2, ElementTriP3
 
 from .case import Case
 from .errors import CaseFileError
-from .forms import permittivity_laplace
+from .forms import linear_stiffness, permittivity_laplace
 from .materials import Material
 from .mesh import EXTERIOR, SectionMesh
 
@@ -209,7 +209,10 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
             f"a point of the axisymmetric model lies at r < 0: ({mesh.p[0, k] * 1e3:.4g}, {mesh.p[1, k] * 1e3:.4g}) mm; "
             "x is the radius, so draw the section at x >= 0 with the axis of revolution on x = 0"
         )
-    stiffness = permittivity_laplace.assemble(basis, eps=weighted_permittivity(basis, section, er, axisymmetric)).tocsr()
+    if straight_planar and order == 1:
+        stiffness = linear_stiffness(mesh, epsilon_0 * er)
+    else:
+        stiffness = permittivity_laplace.assemble(basis, eps=weighted_permittivity(basis, section, er, axisymmetric)).tocsr()
 
     conductors: list[Conductor] = []
     wanted = [(name, v, False) for name, v in case.electrodes.items()] + [(n, q, True) for n, q in case.floating.items()]

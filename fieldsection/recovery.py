@@ -26,7 +26,7 @@ from skfem import Basis, BilinearForm, ElementDG
 
 from .errors import SolverError
 from .fields import gradient_at_points
-from .mesh import triangle_areas
+from .mesh import linear_gradients, triangle_areas
 from .problem import weighted_permittivity
 from .solve import Solution
 
@@ -161,16 +161,10 @@ class _LinearProjector:
         _, glued = np.unique(keys, return_inverse=True)
         self.glued = glued.reshape(keys.shape)
         self.weight = np.bincount(self.glued.ravel(), weights=np.tile(self.area, 3))
-        p, t = mesh.p, mesh.t
-        d1, d2 = p[:, t[1]] - p[:, t[0]], p[:, t[2]] - p[:, t[0]]
-        det = d1[0] * d2[1] - d1[1] * d2[0]
-        # gradients of the three barycentric coordinates, (3 vertices, 2, nelements)
-        g1 = np.array([d2[1], -d2[0]]) / det
-        g2 = np.array([-d1[1], d1[0]]) / det
-        self.gradients = np.array([-g1 - g2, g1, g2])
+        self.gradients = linear_gradients(mesh)
         eps = epsilon_0 * problem.relative_permittivity
         if problem.axisymmetric:
-            eps = eps * 2 * np.pi * p[0, t].mean(axis=0)
+            eps = eps * 2 * np.pi * mesh.p[0, mesh.t].mean(axis=0)
         self.eps_area = eps * self.area
 
     def field(self, potential: np.ndarray) -> np.ndarray:
