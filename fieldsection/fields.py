@@ -102,6 +102,8 @@ def outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.nd
     """
     problem = solution.problem
     mesh = problem.section.mesh
+    if _is_linear(problem):
+        return _linear_outward_flux(solution, elements, local_vertices, chord_normals, coefficient)
     out = np.zeros(len(elements))
     low, high = local_vertices.min(axis=1), local_vertices.max(axis=1)
     for a, b in _EDGES:
@@ -122,3 +124,26 @@ def outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.nd
             e_dot_n = e_dot_n * 2 * np.pi * basis.mapping.F(points, tind=tind)[0]
         out[on_edge] = coefficient[on_edge] * sign * (e_dot_n @ _GAUSS_W)
     return out
+
+
+def _linear_outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.ndarray,
+                         chord_normals: np.ndarray, coefficient: np.ndarray) -> np.ndarray:
+    """``outward_flux`` for linear elements on straight triangles: E is constant, so the edge integral is
+    E . n times the edge's length (times 2 pi r at its midpoint in a body of revolution: r is linear)."""
+    mesh = solution.problem.section.mesh
+    vertices = mesh.t[:, elements]  # (3, n)
+    u = solution.potential[vertices]
+    x, y = mesh.p[0][vertices], mesh.p[1][vertices]
+    d1 = np.array([x[1] - x[0], y[1] - y[0]])
+    d2 = np.array([x[2] - x[0], y[2] - y[0]])
+    det = d1[0] * d2[1] - d1[1] * d2[0]
+    # grad u from u1 - u0 = g . d1 and u2 - u0 = g . d2
+    E = -np.array([(u[1] - u[0]) * d2[1] - (u[2] - u[0]) * d1[1], (u[2] - u[0]) * d1[0] - (u[1] - u[0]) * d2[0]]) / det
+    columns = np.arange(len(elements))
+    a, b = local_vertices[:, 0], local_vertices[:, 1]
+    ax, ay, bx, by = x[a, columns], y[a, columns], x[b, columns], y[b, columns]
+    length = np.hypot(bx - ax, by - ay)
+    flux = coefficient * np.einsum("in,ni->n", E, chord_normals) * length
+    if solution.problem.axisymmetric:
+        flux = flux * 2 * np.pi * 0.5 * (ax + bx)
+    return flux

@@ -158,8 +158,10 @@ class _LinearProjector:
         mesh = section.mesh
         self.area = triangle_areas(mesh)
         keys = mesh.t.astype(np.int64) * len(section.region_names) + section.region_of_element[None, :]
-        _, glued = np.unique(keys, return_inverse=True)
-        self.glued = glued.reshape(keys.shape)
+        # one node per (vertex, region) pair in use, numbered in key order: np.unique's inverse, without a sort
+        used = np.zeros(mesh.nvertices * len(section.region_names), dtype=bool)
+        used[keys] = True
+        self.glued = (np.cumsum(used) - 1)[keys]
         self.weight = np.bincount(self.glued.ravel(), weights=np.tile(self.area, 3))
         self.gradients = linear_gradients(mesh)
         eps = epsilon_0 * problem.relative_permittivity

@@ -24,3 +24,26 @@ def test_hand_built_p1_matrix_equals_scikit_fem_assembly():
     assert abs(built - reference).max() <= 1e-12 * scale
     assert built.nnz == mesh.nvertices + 2 * mesh.nfacets  # one entry per vertex and two per edge
     assert abs(built - built.T).max() == pytest.approx(0.0, abs=1e-15 * scale)
+
+
+def test_linear_shortcuts_equal_the_general_quadrature_paths(monkeypatch):
+    """Straight P1 takes closed forms for E at the vertices and for the edge fluxes (E is constant in an
+    element); the general paths (scikit-fem bases and Gauss quadrature on each edge) must give the same
+    numbers, on a two-layer coaxial line with both a conductor face and a material interface."""
+    from conftest import solve_script
+    from fieldsection import Material, fields
+    from fieldsection.charges import compute_charges
+
+    result = solve_script("coaxial_two_layer.geo", {"inner_layer": Material("a", 2.0, 20e6),
+                                                    "outer_layer": Material("b", 5.0, 20e6)},
+                          {"inner": 1000.0, "outer": 0.0}, order=1, curved=False)
+    fast = compute_charges(result.solution, result.fields)
+    monkeypatch.setattr(fields, "_is_linear", lambda problem: False)
+    general_fields = fields.element_fields(result.solution)
+    general = compute_charges(result.solution, general_fields)
+    np.testing.assert_allclose(result.fields.E, general_fields.E, rtol=1e-10, atol=1e-10 * abs(general_fields.E).max())
+    for mine, theirs in zip(fast.conductors, general.conductors):
+        assert mine.charge_from_flux == pytest.approx(theirs.charge_from_flux, rel=1e-10)
+    assert len(fast.interfaces) >= 3  # inner conductor | layer, layer | layer, layer | outer conductor
+    for mine, theirs in zip(fast.interfaces, general.interfaces):
+        assert mine.bound_charge == pytest.approx(theirs.bound_charge, rel=1e-9, abs=1e-12 * abs(theirs.bound_charge))
