@@ -50,7 +50,7 @@ def _run(args: argparse.Namespace) -> int:
     case = load_case(args.case, trust_script=args.trust_script)
     if args.solver is not None:
         case = replace(case, solver=args.solver)
-    total = len(STAGES) + 7  # computing stages, results, five figures, the VTU file
+    total = len(STAGES) + 7  # computing stages, results, five figures, the VTK file
     with tqdm(total=total, disable=args.quiet, unit="stage", desc=case.name, file=sys.stderr) as bar:
         peaks: list[tuple[str, float, float]] = []  # (stage, start time, peak memory so far)
 

@@ -1,4 +1,4 @@
-"""Report stage: a folder with results.json, report.html, figures and a VTU file.
+"""Report stage: a folder with results.json, report.html, figures and a VTK file.
 
 The folder is built under a temporary name beside its destination and renamed only when every
 file is complete, so a failed run never leaves a half-written report.
@@ -19,7 +19,7 @@ from .errors import ReportError
 from .pipeline import SectionResult
 from .results import build_results
 
-VTU_FILE = "fields.vtu"
+FIELDS_FILE = "fields.vtk"
 
 
 def _render_html(results: dict, figures: list[dict[str, str]]) -> str:
@@ -29,7 +29,7 @@ def _render_html(results: dict, figures: list[dict[str, str]]) -> str:
         undefined=StrictUndefined,
     )
     planar = results["case"]["model"] == "planar"
-    return env.get_template("report.html.j2").render(r=results, figures=figures, vtu_file=VTU_FILE,
+    return env.get_template("report.html.j2").render(r=results, figures=figures, fields_file=FIELDS_FILE,
                                                      L="_per_m" if planar else "", PER="/m" if planar else "")
 
 
@@ -47,7 +47,7 @@ def write_report(
     on_step: Callable[[str], None] | None = None,
 ) -> Path:
     """Write ``reports_dir/<case name>/`` atomically and return its path."""
-    from .vtk_export import write_vtu
+    from .vtk_export import write_vtk
 
     reports_dir = Path(reports_dir)
     try:
@@ -86,8 +86,8 @@ def write_report(
                 draw(staging / name)
                 figure_list.append({"file": name, "caption": caption})
         if on_step:
-            on_step("fields.vtu")
-        write_vtu(result.problem, result.solution, result.fields, result.hotspots, staging / VTU_FILE)
+            on_step(FIELDS_FILE)
+        write_vtk(result.problem, result.solution, result.fields, result.hotspots, staging / FIELDS_FILE)
         (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default), encoding="utf-8")
         (staging / "report.html").write_text(_render_html(results, figure_list), encoding="utf-8")
         _replace_folder(staging, target)

@@ -34,7 +34,7 @@ def demo_report(tmp_path_factory):
 
 
 def test_report_folder_holds_every_file(demo_report):
-    expected = {"results.json", "report.html", "fields.vtu", "regions.png", "potential.png", "field.png",
+    expected = {"results.json", "report.html", "fields.vtk", "regions.png", "potential.png", "field.png",
                 "field_detail.png", "bound_charge.png"}
     assert expected <= {p.name for p in demo_report.iterdir()}
     assert not [p for p in demo_report.parent.iterdir() if p.name.startswith(".")], "staging folder left behind"
@@ -65,10 +65,10 @@ def test_demo_flags_the_air_pocket(demo_report):
         assert body["check_passed"], body
 
 
-def test_vtu_reads_back(demo_report):
+def test_vtk_file_reads_back(demo_report):
     import meshio
 
-    grid = meshio.read(demo_report / "fields.vtu")
+    grid = meshio.read(demo_report / "fields.vtk")
     n_cells = len(grid.cells[0].data)
     assert grid.point_data["V"].shape == (len(grid.points),)
     assert grid.cell_data["E"][0].shape == (n_cells, 3)
@@ -83,7 +83,7 @@ def test_failed_report_leaves_the_previous_one_untouched(tmp_path, monkeypatch):
     def broken(*args, **kwargs):
         raise OSError("disk full")
 
-    monkeypatch.setattr("fieldsection.vtk_export.write_vtu", broken)
+    monkeypatch.setattr("fieldsection.vtk_export.write_vtk", broken)
     from fieldsection.errors import ReportError
 
     with pytest.raises(ReportError, match="disk full.*no report was written"):
