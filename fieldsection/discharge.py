@@ -14,10 +14,9 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from skfem import MeshTri1
 
 from .fields import ElementFields
-from .mesh import fit_circle, triangle_areas
+from .mesh import fit_circle
 from .problem import AssembledProblem
 
 #: standard atmosphere, Pa
@@ -139,10 +138,7 @@ def screen_gas_gaps(problem: AssembledProblem, fields: ElementFields, pressure: 
     """One screening per gas region with Paschen constants, lowest margin first."""
     section = problem.section
     mesh = section.mesh
-    drawn = np.flatnonzero(~section.exterior)  # the open-space image overlaps the section: not searched
-    walker = _FieldLineWalker(MeshTri1(np.ascontiguousarray(mesh.p[:, :mesh.nvertices]),
-                                       np.ascontiguousarray(mesh.t[:, drawn])),
-                              drawn, section.region_of_element, fields)
+    walker = _FieldLineWalker(mesh, ~section.exterior, section.region_of_element, fields)
     out = []
     for name, material in problem.material_of_region.items():
         if material.kind != "gas" or material.paschen is None:
@@ -150,7 +146,7 @@ def screen_gas_gaps(problem: AssembledProblem, fields: ElementFields, pressure: 
         elements = section.elements_of(name)
         hottest = elements[np.argmax(fields.element_peak_E[elements])]
         start = mesh.p[:, mesh.t[:, hottest]].mean(axis=1)
-        legs = [walker.follow(start, section.region_names.index(name), sign) for sign in (1.0, -1.0)]
+        legs = [walker.follow(start, int(hottest), sign) for sign in (1.0, -1.0)]
         length = legs[0][1] + legs[1][1]
         voltage = legs[0][2] + legs[1][2]
         breakdown = paschen_voltage(pressure * length, material.paschen)
@@ -162,56 +158,92 @@ def screen_gas_gaps(problem: AssembledProblem, fields: ElementFields, pressure: 
 
 
 class _FieldLineWalker:
-    """Marches along a field line through a triangulation (midpoint rule, steps of a fifth of an element)."""
+    """Marches along a field line through the section's straight (corner) triangles, midpoint rule, steps
+    of a fifth of an element. Each step lands in the same element or a near one, so points are located
+    among the neighbours of the last element first; a search tree is built only if that fails. The
+    open-space image (not ``drawn``) counts as outside."""
 
-    def __init__(self, flat: MeshTri1, drawn: np.ndarray, region_of_element: np.ndarray, fields: ElementFields):
-        self.flat, self.drawn, self.region, self.fields = flat, drawn, region_of_element, fields
-        self.find = flat.element_finder()
-        self.size = np.sqrt(2 * triangle_areas(flat))
+    def __init__(self, mesh, drawn: np.ndarray, region_of_element: np.ndarray, fields: ElementFields):
+        self.mesh, self.drawn, self.region, self.fields = mesh, drawn, region_of_element, fields
+        self.x, self.y = mesh.p[0], mesh.p[1]
+        self._tree = None
 
-    def locate(self, point: np.ndarray) -> int:
-        """Index into the flat mesh of the element holding ``point``, or -1 outside."""
-        try:
-            return int(self.find(np.array([point[0]]), np.array([point[1]]))[0])
-        except ValueError:
-            return -1
+    def _corners(self, ks: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        vertices = self.mesh.t[:3, ks]
+        return self.x[vertices], self.y[vertices]  # each (3, len(ks))
+
+    def _barycentric(self, point: np.ndarray, ks: np.ndarray) -> np.ndarray:
+        x, y = self._corners(ks)
+        det = (x[1] - x[0]) * (y[2] - y[0]) - (x[2] - x[0]) * (y[1] - y[0])
+        s = ((point[0] - x[0]) * (y[2] - y[0]) - (x[2] - x[0]) * (point[1] - y[0])) / det
+        t = ((x[1] - x[0]) * (point[1] - y[0]) - (point[0] - x[0]) * (y[1] - y[0])) / det
+        return np.array([1 - s - t, s, t])
+
+    def _first_holding(self, point: np.ndarray, ks: np.ndarray) -> int:
+        inside = (self._barycentric(point, ks) >= -1e-12).all(axis=0)
+        return int(ks[np.argmax(inside)]) if inside.any() else -1
+
+    def _neighbours(self, ks: np.ndarray) -> np.ndarray:
+        around = self.mesh.f2t[:, self.mesh.t2f[:, ks]].ravel()
+        return np.unique(around[around >= 0])
+
+    def locate(self, point: np.ndarray, near: int) -> int:
+        """Element holding ``point`` (searched from element ``near`` outwards), or -1 outside the drawn section."""
+        ring = np.array([near])
+        for _ in range(3):  # the element, its neighbours, theirs
+            found = self._first_holding(point, ring)
+            if found >= 0:
+                return found if self.drawn[found] else -1
+            ring = self._neighbours(ring)
+        if self._tree is None:
+            from scipy.spatial import cKDTree
+
+            t = self.mesh.t[:3]
+            self._ids = np.flatnonzero(self.drawn)
+            self._tree = cKDTree(np.column_stack([self.x[t[:, self._ids]].mean(axis=0),
+                                                  self.y[t[:, self._ids]].mean(axis=0)]))
+        _, nearest = self._tree.query(point, k=min(32, self._ids.size))
+        return self._first_holding(point, self._ids[np.atleast_1d(nearest)])
+
+    def _size(self, k: int) -> float:
+        x, y = self._corners(np.array([k]))
+        return float(np.sqrt(abs((x[1] - x[0]) * (y[2] - y[0]) - (x[2] - x[0]) * (y[1] - y[0]))[0]))
 
     def field(self, point: np.ndarray, k: int) -> np.ndarray:
-        """E at ``point`` in flat element k: linear in the vertex values (exact for P1 and straight P2)."""
-        corners = self.flat.p[:, self.flat.t[:, k]]
-        jac = np.column_stack([corners[:, 1] - corners[:, 0], corners[:, 2] - corners[:, 0]])
-        s, t = np.linalg.solve(jac, point - corners[:, 0])
-        weights = np.array([1 - s - t, s, t])
-        return weights @ self.fields.E[self.drawn[k]]
+        """E at ``point`` in element k: linear in the vertex values (exact for P1 and straight P2)."""
+        return self._barycentric(point, np.array([k]))[:, 0] @ self.fields.E[k]
 
-    def follow(self, start: np.ndarray, region: int, sign: float) -> tuple[tuple[float, float], float, float]:
-        """(end point, length, integral of |E|) along sign * E from ``start`` until the region ends."""
+    def follow(self, start: np.ndarray, element: int, sign: float) -> tuple[tuple[float, float], float, float]:
+        """(end point, length, integral of |E|) along sign * E from ``start`` (in ``element``) until its region ends."""
         point = np.asarray(start, dtype=float)
-        k = self.locate(point)
+        region = self.region[element]
+        k = element
         length = volts = 0.0
+
+        def within(candidate: int) -> bool:
+            return candidate >= 0 and self.region[candidate] == region
+
         for _ in range(_MAX_STEPS):  # steps along one line, not a loop over the mesh
-            if k < 0 or self.region[self.drawn[k]] != region:
+            if not within(k):
                 break
-            step = 0.2 * self.size[k]
+            step = 0.2 * self._size(k)
             e = self.field(point, k)
             if not np.hypot(*e) > 0:
                 break
             middle = point + 0.5 * step * sign * e / np.hypot(*e)
-            km = self.locate(middle)
-            inside_mid = km >= 0 and self.region[self.drawn[km]] == region
-            e_mid = self.field(middle, km) if inside_mid else e  # near the region's edge: Euler's step
+            km = self.locate(middle, k)
+            e_mid = self.field(middle, km) if within(km) else e  # near the region's edge: Euler's step
             magnitude = float(np.hypot(*e_mid))
             if not magnitude > 0:
                 break
             ahead = point + step * sign * e_mid / magnitude
-            k_ahead = self.locate(ahead)
-            if k_ahead < 0 or self.region[self.drawn[k_ahead]] != region:
+            k_ahead = self.locate(ahead, k)
+            if not within(k_ahead):
                 # the region ends within this step: find where by bisection, and stop there
                 inside, outside = 0.0, step
                 for _ in range(30):
                     trial = 0.5 * (inside + outside)
-                    kt = self.locate(point + trial * sign * e_mid / magnitude)
-                    if kt >= 0 and self.region[self.drawn[kt]] == region:
+                    if within(self.locate(point + trial * sign * e_mid / magnitude, k)):
                         inside = trial
                     else:
                         outside = trial
