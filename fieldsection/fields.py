@@ -34,6 +34,8 @@ class ElementFields:
     @property
     def E_magnitude(self) -> np.ndarray:
         """|E| at each vertex of each element, shape (nelements, 3)."""
+        if self.E.strides[1] == 0:  # constant in each element (linear elements): once per element
+            return np.broadcast_to(np.hypot(self.E[:, 0, 0], self.E[:, 0, 1])[:, None], self.E.shape[:2])
         return np.hypot(self.E[..., 0], self.E[..., 1])
 
     @property

@@ -26,8 +26,7 @@ def linear_stiffness(mesh: MeshTri1, eps: np.ndarray) -> sp.csr_matrix:
     """
     t = mesh.t
     xs, ys = mesh.p[0][t], mesh.p[1][t]  # (3, m)
-    sx = np.roll(xs, -2, axis=0) - np.roll(xs, -1, axis=0)
-    sy = np.roll(ys, -2, axis=0) - np.roll(ys, -1, axis=0)
+    sx, sy = xs[[2, 0, 1]] - xs[[1, 2, 0]], ys[[2, 0, 1]] - ys[[1, 2, 0]]  # side i runs from vertex i+1 to i+2
     coefficient = eps / (2.0 * np.abs(sx[1] * sy[2] - sx[2] * sy[1]))  # eps / (4 A)
     n, edges = mesh.nvertices, mesh.facets
     diagonal = np.bincount(t.ravel(), weights=(coefficient * (sx**2 + sy**2)).ravel(), minlength=n)

@@ -354,11 +354,16 @@ def triangle_areas(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
 
 def linear_gradients(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
     """Gradients of the three barycentric coordinates of each corner triangle, (3 vertices, 2, nelements), 1/m."""
+    return linear_gradients_and_areas(mesh)[0]
+
+
+def linear_gradients_and_areas(mesh: MeshTri1 | MeshTri2) -> tuple[np.ndarray, np.ndarray]:
+    """``linear_gradients`` and ``triangle_areas`` from one pass over the corner triangles."""
     d1, d2 = _corner_sides(mesh)
     det = d1[0] * d2[1] - d1[1] * d2[0]
     g1 = np.array([d2[1], -d2[0]]) / det
     g2 = np.array([-d1[1], d1[0]]) / det
-    return np.array([-g1 - g2, g1, g2])
+    return np.array([-g1 - g2, g1, g2]), 0.5 * np.abs(det)
 
 
 def _check_quality(mesh: MeshTri1 | MeshTri2) -> None:

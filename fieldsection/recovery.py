@@ -26,7 +26,7 @@ from skfem import Basis, BilinearForm, ElementDG
 
 from .errors import SolverError
 from .fields import gradient_at_points
-from .mesh import linear_gradients, triangle_areas
+from .mesh import linear_gradients_and_areas
 from .problem import weighted_permittivity
 from .solve import Solution
 
@@ -156,14 +156,13 @@ class _LinearProjector:
         self.problem = problem
         section = problem.section
         mesh = section.mesh
-        self.area = triangle_areas(mesh)
+        self.gradients, self.area = linear_gradients_and_areas(mesh)
         keys = mesh.t.astype(np.int64) * len(section.region_names) + section.region_of_element[None, :]
         # one node per (vertex, region) pair in use, numbered in key order: np.unique's inverse, without a sort
         used = np.zeros(mesh.nvertices * len(section.region_names), dtype=bool)
         used[keys] = True
         self.glued = (np.cumsum(used) - 1)[keys]
         self.weight = np.bincount(self.glued.ravel(), weights=np.tile(self.area, 3))
-        self.gradients = linear_gradients(mesh)
         eps = epsilon_0 * problem.relative_permittivity
         if problem.axisymmetric:
             eps = eps * 2 * np.pi * mesh.p[0, mesh.t].mean(axis=0)

@@ -68,6 +68,10 @@ class _SuperLU:
         self._lu = None
 
 
+#: PARDISO's iparm (1-based number, value), see _Pardiso
+PARDISO_SETTINGS = ((1, 1), (2, 3), (10, 8), (18, -1), (24, 1))
+
+
 class _Pardiso:
     name = "PARDISO"
 
@@ -81,7 +85,7 @@ class _Pardiso:
         # here. Our own settings (1-based iparm numbers): parallel nested dissection, pivot perturbation 1e-8,
         # nnz report, two-level factorisation (faster multi-column solves); CG-level accuracy is not at stake,
         # the residual stays ~1e-11 and is checked
-        for number, value in ((1, 1), (2, 3), (10, 8), (18, -1), (24, 1)):
+        for number, value in PARDISO_SETTINGS:
             self._solver.set_iparm(number, value)
         self._upper = sp.triu(matrix, format="csr")
         self._upper.sort_indices()

@@ -36,7 +36,8 @@ UNKNOWN_UTILISATION = -1.0
 
 def _centroid_xyz(vertex_values: np.ndarray) -> np.ndarray:
     """(nelements, 3, 2) vertex values -> (nelements, 3) centroid values with z = 0."""
-    mean = vertex_values.mean(axis=1)
+    # constant in each element (linear elements, stored as a broadcast view): no mean to take
+    mean = vertex_values[:, 0] if vertex_values.strides[1] == 0 else vertex_values.mean(axis=1)
     return np.column_stack([mean, np.zeros(len(mean))])
 
 
