@@ -14,6 +14,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.constants import epsilon_0
 from skfem import Basis, ElementTriP1, ElementTriP2, ElementTriP3
+from skfem.mapping import MappingAffine
 
 from .case import Case
 from .errors import CaseFileError
@@ -184,8 +185,9 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
     # integrates P1 exactly, a degree-2 rule P2; the 2 pi r weight and curved elements need more
     if straight_planar and order == 1:
         # K is built directly (``linear_stiffness``) and the fields in closed form: the basis serves only for
-        # its DOF numbering, so it holds the shape functions of one element (~150 MB less at a million nodes)
-        basis = Basis(mesh, ElementTriP1(), quadrature=_CENTROID, elements=np.array([0]))
+        # its DOF numbering, so it and its mapping hold one element (~300 MB less at a million nodes)
+        one = np.array([0])
+        basis = Basis(mesh, ElementTriP1(), mapping=MappingAffine(mesh, tind=one), quadrature=_CENTROID, elements=one)
     else:
         basis = Basis(mesh, _ELEMENTS[order](), intorder=2 * (order - 1) if straight_planar else 2 * order)
 
