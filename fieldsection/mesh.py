@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 from typing import Mapping
 
 import numpy as np
+import scipy.sparse as sp
 from skfem import MeshTri1, MeshTri2
 
 from .errors import MeshError
@@ -63,7 +64,7 @@ def _facet_keys(pairs: np.ndarray, n_vertices: int) -> np.ndarray:
 
 
 def _with_facets(mesh: MeshTri1 | MeshTri2, like: MeshTri1 | None = None) -> MeshTri1 | MeshTri2:
-    """Give ``mesh`` its facet tables (``facets``, ``t2f``, ``f2t``) from one sort of integer keys.
+    """Give ``mesh`` its facet tables (``facets``, ``t2f``, ``f2t``) from a sparse pattern of its edges.
 
     They are exactly scikit-fem's own (facets as sorted vertex pairs in lexicographic order, ``t2f``
     by the reference facets), built about 10x faster than its row-wise ``np.unique``; scikit-fem
@@ -74,15 +75,22 @@ def _with_facets(mesh: MeshTri1 | MeshTri2, like: MeshTri1 | None = None) -> Mes
         return mesh
     local = mesh.elem.refdom.facets
     n = mesh.nvertices
-    t = mesh.t.astype(np.int64)
-    keys = np.concatenate([_facet_keys(t[list(ix)].T, n) for ix in local])
-    unique, inverse = np.unique(keys, return_inverse=True)
-    mesh._facets = np.ascontiguousarray(np.vstack([unique // n, unique % n]).astype(np.int32))
+    t = mesh.t
+    ends = [np.concatenate([t[ix[k]] for ix in local]) for k in (0, 1)]
+    low, high = np.minimum(*ends).astype(np.int32), np.maximum(*ends).astype(np.int32)
+    # a CSR pattern of (low, high) holds each edge once, rows and columns sorted: the facets in lexicographic
+    # order, in linear time (a sort of the 3 m edge keys took twice as long at a million nodes)
+    pattern = sp.coo_matrix((np.ones(low.size, dtype=np.int8), (low, high)), shape=(n, n)).tocsr()
+    pattern.sum_duplicates()
+    pattern.data = np.arange(pattern.nnz, dtype=np.int64)  # each stored entry's facet index
+    inverse = np.asarray(pattern[low, high]).ravel()
+    rows = np.repeat(np.arange(n, dtype=np.int32), np.diff(pattern.indptr))
+    mesh._facets = np.ascontiguousarray(np.vstack([rows, pattern.indices.astype(np.int32)]))
     mesh._t2f = inverse.reshape(len(local), -1).astype(np.int32)
     # f2t: first and last element listing each facet (in t2f's row-major order), -1 if only one
     element = np.tile(np.arange(mesh.nelements, dtype=np.int32), len(local))
-    first = np.full(unique.size, -1, dtype=np.int32)
-    last = np.full(unique.size, -1, dtype=np.int32)
+    first = np.full(pattern.nnz, -1, dtype=np.int32)
+    last = np.full(pattern.nnz, -1, dtype=np.int32)
     first[inverse[::-1]] = element[::-1]  # repeated indices: the last assignment wins
     last[inverse] = element
     last[last == first] = -1

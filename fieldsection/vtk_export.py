@@ -67,9 +67,10 @@ def section_to_meshio(problem: AssembledProblem, solution: Solution, fields: Ele
     drawn = ~problem.section.exterior  # the mapped exterior of an open-space circle is not physical space
     return meshio.Mesh(
         points,
-        [("triangle", np.ascontiguousarray(mesh.t[:, drawn].T, dtype=np.int64))],
+        [("triangle", np.ascontiguousarray((mesh.t if drawn.all() else mesh.t[:, drawn]).T, dtype=np.int64))],
         point_data={"V": np.ascontiguousarray(solution.potential[:n_vertices], dtype=np.float64)},
-        cell_data={name: [np.ascontiguousarray(values[drawn])] for name, values in cell_data.items()},
+        cell_data={name: [np.ascontiguousarray(values if drawn.all() else values[drawn])]
+                   for name, values in cell_data.items()},
     )
 
 
