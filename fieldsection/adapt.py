@@ -16,14 +16,14 @@ import numpy as np
 from scipy.spatial import cKDTree
 
 from .gmsh_adapter import SizeField
-from .mesh import SectionMesh, largest_at_vertices, triangle_areas
+from .mesh import SectionMesh, largest_at_vertices
 
 FINEST_STEP, COARSEST_STEP = 0.25, 2.0
 
 
 def element_sizes(section: SectionMesh) -> np.ndarray:
     """Edge length of the equilateral triangle of each element's area, m."""
-    return np.sqrt(4.0 / np.sqrt(3.0) * triangle_areas(section.mesh))
+    return np.sqrt(4.0 / np.sqrt(3.0) * section.element_areas)
 
 
 def vertex_sizes(section: SectionMesh) -> np.ndarray:

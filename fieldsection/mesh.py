@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Mapping
 
 import numpy as np
@@ -52,10 +53,12 @@ class SectionMesh:
     def elements_of(self, region: str) -> np.ndarray:
         return np.flatnonzero(self.region_of_element == self.region_names.index(region))
 
-    @property
+    @cached_property
     def element_areas(self) -> np.ndarray:
-        """Area of each element's straight-sided triangle, m^2."""
-        return triangle_areas(self.mesh)
+        """Area of each element's straight-sided triangle, m^2 (computed once; read-only)."""
+        areas = triangle_areas(self.mesh)
+        areas.flags.writeable = False
+        return areas
 
 
 def _facet_keys(pairs: np.ndarray, n_vertices: int) -> np.ndarray:
