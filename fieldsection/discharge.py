@@ -190,10 +190,10 @@ class _FieldLineWalker:
     def locate(self, point: np.ndarray, near: int) -> int:
         """Element holding ``point`` (searched from element ``near`` outwards), or -1 outside the drawn section."""
         ring = np.array([near])
-        for _ in range(3):  # the element, its neighbours, theirs
-            found = self._first_holding(point, ring)
+        for _ in range(3):  # the element, its neighbours, theirs (the open-space image overlaps: skipped)
+            found = self._first_holding(point, ring[self.drawn[ring]])
             if found >= 0:
-                return found if self.drawn[found] else -1
+                return found
             ring = self._neighbours(ring)
         if self._tree is None:
             from scipy.spatial import cKDTree
@@ -202,8 +202,12 @@ class _FieldLineWalker:
             self._ids = np.flatnonzero(self.drawn)
             self._tree = cKDTree(np.column_stack([self.x[t[:, self._ids]].mean(axis=0),
                                                   self.y[t[:, self._ids]].mean(axis=0)]))
-        _, nearest = self._tree.query(point, k=min(32, self._ids.size))
-        return self._first_holding(point, self._ids[np.atleast_1d(nearest)])
+        for count in (32, 1024):  # a big element beside a finely meshed band may be far down the list
+            _, nearest = self._tree.query(point, k=min(count, self._ids.size))
+            found = self._first_holding(point, self._ids[np.atleast_1d(nearest)])
+            if found >= 0:
+                return found
+        return -1
 
     def _size(self, k: int) -> float:
         x, y = self._corners(np.array([k]))

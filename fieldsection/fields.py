@@ -10,7 +10,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.constants import epsilon_0
-from skfem import Basis, MeshTri1
+from skfem import Basis
 
 from .mesh import linear_gradients
 from .solve import Solution
@@ -24,7 +24,11 @@ _GAUSS_S, _GAUSS_W = 0.5 * (_GAUSS_S + 1.0), 0.5 * _GAUSS_W  # on [0, 1]
 
 @dataclass(frozen=True)
 class ElementFields:
-    """Field values at the vertices of every element, SI units: arrays of shape (nelements, 3, 2)."""
+    """Field values at the vertices of every element, SI units: arrays of shape (nelements, 3, 2).
+
+    For linear elements on straight triangles the field is constant in each element and the arrays are
+    read-only views that repeat one value per element (copy them before writing).
+    """
 
     E: np.ndarray  # V/m
     D: np.ndarray  # C/m^2
@@ -62,7 +66,8 @@ def gradient_at_vertices(solution: Solution, dof_vector: np.ndarray) -> np.ndarr
 
 
 def _is_linear(problem) -> bool:
-    return problem.element_order == 1 and isinstance(problem.section.mesh, MeshTri1)
+    """Linear elements on straight triangles (MeshTri2, curved, is a subclass of MeshTri1: not these)."""
+    return problem.element_order == 1 and not problem.section.curved
 
 
 def gradient_at_points(basis: Basis, u: np.ndarray) -> np.ndarray:

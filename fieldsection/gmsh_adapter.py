@@ -356,6 +356,9 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
     _apply_sizes(gmsh, settings, scale, surfaces, curves, electrode_names & (set(surfaces) | set(curves)), size_field)
     if settings.refinements:  # mesh coarser by 2**k here, then split each triangle into four, k times
         gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**settings.refinements)
+    # linear triangles from gmsh whatever the script asks (Mesh.ElementOrder): curved elements get their
+    # mid-edge nodes here, after the splitting, from [mesh] curved
+    gmsh.option.setNumber("Mesh.ElementOrder", 1)
     try:
         gmsh.model.mesh.generate(2)
     except Exception as exc:
@@ -409,12 +412,18 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
             return points
         return gmsh.model.getClosestPoint(1, entity, points.ravel())[0].reshape(-1, 3)
 
+    def snap_segments(entity: int, midpoints: np.ndarray, chords: np.ndarray) -> np.ndarray:
+        projected = snap(entity, midpoints)
+        # on a tight bend the nearest point can lie on another stretch of the curve: keep the chord's midpoint
+        jumped = np.hypot(*(projected - midpoints)[:, :2].T) > 0.5 * chords
+        return np.where(jumped[:, None], midpoints, projected)
+
     # splitting in numpy (with gmsh's projection onto the curves) is much cheaper than gmsh's refine
     for _ in range(settings.refinements):
-        coords, triangles, entity_segments = split_into_four(coords, triangles, entity_segments, snap)
+        coords, triangles, entity_segments = split_into_four(coords, triangles, entity_segments, snap_segments)
     entity_rows = {e: (a * 4**settings.refinements, b * 4**settings.refinements) for e, (a, b) in entity_rows.items()}
     if settings.curved:
-        coords, triangles = with_mid_edge_nodes(coords, triangles, entity_segments, snap)
+        coords, triangles = with_mid_edge_nodes(coords, triangles, entity_segments, snap_segments)
 
     surface_groups = {
         name: np.concatenate([np.arange(*entity_rows[e]) for e in tags]) if tags else np.zeros(0, dtype=np.int64)

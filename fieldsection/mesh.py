@@ -342,7 +342,7 @@ def largest_at_vertices(mesh: MeshTri1 | MeshTri2, elements: np.ndarray, values:
     largest = np.full(mesh.nvertices, -np.inf)
     np.maximum.at(largest, vertices, flat)  # scattered maximum: ~20x faster than sorting by vertex and value
     source = np.full(mesh.nvertices, -1, dtype=np.int64)
-    gives = flat >= largest[vertices]
+    gives = (flat >= largest[vertices]) | np.isnan(flat)  # a NaN wins the maximum: name its element
     source[vertices[gives]] = np.repeat(elements, 3)[gives]
     touched = np.zeros(mesh.nvertices, dtype=bool)
     touched[vertices] = True

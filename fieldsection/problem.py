@@ -187,7 +187,9 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
         # K is built directly (``linear_stiffness``) and the fields in closed form: the basis serves only for
         # its DOF numbering, so it and its mapping hold one element (~300 MB less at a million nodes)
         one = np.array([0])
-        basis = Basis(mesh, ElementTriP1(), mapping=MappingAffine(mesh, tind=one), quadrature=_CENTROID, elements=one)
+        basis = Basis(mesh, ElementTriP1(), mapping=MappingAffine(mesh, tind=one), quadrature=_CENTROID, elements=one,
+                      disable_doflocs=True)
+        basis.doflocs = mesh.p  # P1's DOFs are the vertices (mapped through element 0 they would all be wrong)
     else:
         basis = Basis(mesh, _ELEMENTS[order](), intorder=2 * (order - 1) if straight_planar else 2 * order)
 
@@ -296,6 +298,13 @@ def assemble(case: Case, section: SectionMesh) -> AssembledProblem:
                             free, case.outer_boundary, case.symmetry_copies, tuple(notes), axisymmetric)
 
 
+def dof_location(basis: Basis, dof: int) -> np.ndarray:
+    """Where a DOF sits, m: a vertex's own coordinates (vertex DOFs come first), else the basis's."""
+    if dof < basis.mesh.nvertices:
+        return basis.mesh.p[:, dof]
+    return basis.doflocs[:, dof]
+
+
 def axis_facets(mesh, boundary_only: bool = True) -> np.ndarray:
     """Facets (boundary facets only, by default) lying on the axis of revolution x = 0."""
     candidates = mesh.boundary_facets() if boundary_only else np.arange(mesh.nfacets)
@@ -359,7 +368,7 @@ def _check_touching(conductors: list[Conductor], basis: Basis) -> None:
         shared = conductor.dofs[owner[conductor.dofs] >= 0]
         if shared.size:
             other = conductors[owner[shared[0]]]
-            x, y = basis.doflocs[:, shared[0]]
+            x, y = dof_location(basis, int(shared[0]))
             where = f"({x * 1e3:.4g}, {y * 1e3:.4g}) mm"
             outer = [c for c in (other, conductor) if c.name == OUTER_BOUNDARY or c.joins_outer_boundary]
             if outer:

@@ -13,8 +13,9 @@ from typing import Callable, Mapping
 
 import numpy as np
 
-#: moves points (k, 3) onto the geometry curve with the given entity tag; returns (k, 3)
-Snap = Callable[[int, np.ndarray], np.ndarray]
+#: moves the midpoints (k, 3) of k edges of chord lengths (k,) onto the geometry curve with the given
+#: entity tag; returns (k, 3)
+Snap = Callable[[int, np.ndarray, np.ndarray], np.ndarray]
 
 def _edges(points: np.ndarray, triangles: np.ndarray, curve_segments: Mapping[int, np.ndarray], snap: Snap
            ) -> tuple[np.ndarray, np.ndarray, dict[int, np.ndarray]]:
@@ -32,7 +33,8 @@ def _edges(points: np.ndarray, triangles: np.ndarray, curve_segments: Mapping[in
         where = np.minimum(np.searchsorted(keys, wanted), len(keys) - 1)
         if len(wanted) == 0 or not (keys[where] == wanted).all():
             continue  # a curve that bounds no triangle (a stray construction line): left as it is
-        midpoints[where] = snap(entity, midpoints[where])
+        chords = np.hypot(*(points[second[where]] - points[first[where]])[:, :2].T)
+        midpoints[where] = snap(entity, midpoints[where], chords)
         edge_of_segment[entity] = where
     return edge_of_side.reshape(-1, 3), midpoints, edge_of_segment
 

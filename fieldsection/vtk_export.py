@@ -80,7 +80,8 @@ def write_vtk(problem: AssembledProblem, solution: Solution, fields: ElementFiel
     path = Path(path)
     grid = section_to_meshio(problem, solution, fields, hotspots)
     try:
-        meshio.write(path, grid, file_format="vtk", binary=True)
+        # version 4.2 of the legacy format: read by older ParaView and VisIt too (5.1 needs VTK 9)
+        meshio.vtk.write(path, grid, binary=True, fmt_version="4.2")
     except OSError as exc:
         raise ReportError(f"cannot write the VTK file {str(path)!r}: {exc.strerror or exc}; "
                           "check that its folder exists and is writable") from None

@@ -75,8 +75,9 @@ def test_splitting_quarters_every_triangle_and_keeps_its_orientation():
     triangles = np.array([[0, 1, 2], [0, 2, 3]])
     lifted = []
 
-    def snap(entity, xyz):
+    def snap(entity, xyz, chords):
         lifted.append(entity)
+        assert np.allclose(chords, 1.0)  # the unit square's sides
         return xyz + [0.0, -0.1, 0.0]  # a bulge below the bottom side
 
     def signed_areas(p, t):
@@ -97,3 +98,13 @@ def test_splitting_quarters_every_triangle_and_keeps_its_orientation():
     assert t6.shape == (2, 6) and len(p6) == 9
     np.testing.assert_allclose(p6[t6[0, 3]], [0.5, -0.1, 0.0])  # edge (0, 1) of triangle 0, on the curve
     np.testing.assert_allclose(p6[t6[0, 4]], [1.0, 0.5, 0.0])  # edge (1, 2): a chord's midpoint
+
+
+def test_a_script_asking_for_second_order_elements_is_meshed_as_the_case_says(tmp_path):
+    # a script may carry its own Mesh.ElementOrder; the case's [mesh] settings decide (C: Pozar, Table 2.1)
+    script = tmp_path / "coaxial_second_order.geo"
+    script.write_text((GEOMETRIES / "coaxial.geo").read_text() + "\nMesh.ElementOrder = 2;\n")
+    case = Case("coaxial", ScriptGeometry(script, {"lc": 0.4}, 1e-3),
+                {"insulation": Material("test dielectric", EPS_R, 20e6)}, {"inner": V, "outer": 0.0},
+                mesh=MeshSettings(element_order=2, curved=True, refinements=1), refinement=SINGLE_MESH)
+
