@@ -83,14 +83,16 @@ class MeshSettings:
     region_sizes: Mapping[str, float] = field(default_factory=dict)
     element_order: int = 2
     curved: bool = True  # second-order geometry: mid-edge nodes placed on arcs
-    refinements: int = 0  # mesh at 2**k times the sizes, then split every triangle into four, k times
+    #: mesh at 2**k times the sizes, then split every triangle into four, k times; None (the default):
+    #: chosen by the meshing stage, 0 unless the mesh would be big (see ``gmsh_adapter.AUTO_SPLIT_ABOVE``)
+    refinements: int | None = None
 
     def __post_init__(self) -> None:
         k = self.refinements
-        if isinstance(k, bool) or not isinstance(k, int) or not 0 <= k <= MAX_REFINEMENTS:
+        if k is not None and (isinstance(k, bool) or not isinstance(k, int) or not 0 <= k <= MAX_REFINEMENTS):
             raise CaseFileError(
-                f"mesh.refinements = {k!r}: a whole number from 0 to {MAX_REFINEMENTS}, how many times every "
-                "triangle of a coarser mesh is split into four (each split halves the element size)"
+                f"mesh.refinements = {k!r}: \"auto\" or a whole number from 0 to {MAX_REFINEMENTS}, how many times "
+                "every triangle of a coarser mesh is split into four (each split halves the element size)"
             )
         if self.element_order not in ELEMENT_ORDERS:
             raise CaseFileError(
@@ -259,6 +261,14 @@ def _whole(value: Any, where: str) -> int:
     return value
 
 
+def _refinements(value: Any) -> int | None:
+    if value == "auto":
+        return None
+    if isinstance(value, str):
+        raise CaseFileError(f"mesh.refinements = {value!r}: must be \"auto\" or a whole number without quotes, e.g. 2")
+    return _whole(value, "mesh.refinements")
+
+
 def _flag(value: Any, where: str) -> bool:
     if not isinstance(value, bool):
         raise CaseFileError(f"{where} = {value!r}: must be true or false, without quotes")
@@ -389,7 +399,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         },
         element_order=_whole(mesh_table.get("element_order", 2), "mesh.element_order"),
         curved=_flag(mesh_table.get("curved", True), "mesh.curved"),
-        refinements=_whole(mesh_table.get("refinements", 0), "mesh.refinements"),
+        refinements=_refinements(mesh_table.get("refinements", "auto")),
     )
     refinement_table = _table(data, "refinement", where)
     _check_keys(refinement_table, {"adaptive", "capacitance_tolerance", "field_tolerance", "max_dofs", "max_passes"},

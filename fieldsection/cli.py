@@ -50,18 +50,23 @@ def _run(args: argparse.Namespace) -> int:
     case = load_case(args.case, trust_script=args.trust_script)
     if args.solver is not None:
         case = replace(case, solver=args.solver)
-    total = len(STAGES) + 7  # computing stages, results, five figures, the VTK file
-    with tqdm(total=total, disable=args.quiet, unit="stage", desc=case.name, file=sys.stderr) as bar:
+    writing = 7  # results, five figures, the VTK file
+    with tqdm(total=len(STAGES) + writing, disable=args.quiet, unit="stage", desc=case.name, file=sys.stderr) as bar:
         peaks: list[tuple[str, float, float]] = []  # (stage, start time, peak memory so far)
+        computing = [True]
 
         def step(name: str) -> None:  # called as each stage starts
+            if computing[0] and bar.n >= bar.total - writing - 1:  # another adaptive pass: room for its stages
+                bar.total += len(STAGES)
             bar.set_postfix_str(name)
             bar.update(1)
             peaks.append((name, time.perf_counter(), _peak_memory_gib()))
 
         result = analyse(case, on_stage=step)
+        computing[0] = False
+        bar.total = bar.n + writing if not args.no_figures else bar.n + 2
         folder = write_report(result, args.reports, with_figures=not args.no_figures, on_step=step)
-        bar.update(total - bar.n)
+        bar.update(bar.total - bar.n)
         peaks.append(("end", time.perf_counter(), _peak_memory_gib()))
     if not args.quiet:
         _summary(result, folder)

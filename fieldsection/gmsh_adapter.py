@@ -20,7 +20,7 @@ from typing import Iterator, Mapping
 
 import numpy as np
 
-from .case import BuilderGeometry, MeshSettings, ScriptGeometry
+from .case import MAX_REFINEMENTS, BuilderGeometry, MeshSettings, ScriptGeometry
 from .errors import GeometryError, MeshError
 from .geometry import screen_script
 from .splitting import split_into_four, with_mid_edge_nodes
@@ -29,6 +29,12 @@ from .splitting import split_into_four, with_mid_edge_nodes
 MESHING_TIME_LIMIT = 3600.0
 #: smallest mesh size accepted, as a share of the geometry's extent
 SMALLEST_RELATIVE_SIZE = 1e-7
+#: with ``refinements`` left to the tool: a mesh predicted above this many nodes is meshed coarser and split
+#: (gmsh meshes ~15 000 nodes per second; splitting a million nodes takes under a second)
+AUTO_SPLIT_ABOVE = 100_000
+#: ... so that gmsh meshes about this many nodes
+AUTO_COARSE_NODES = 25_000
+_PROBE_SPLITS = 3  # the automatic choice first meshes 2**3 times coarser, to predict the node count
 
 # gmsh element type codes (see gmsh's documentation, "MSH file format")
 _LINE2, _TRI3 = 1, 2
@@ -50,6 +56,7 @@ class RawMesh:
     warnings: tuple[str, ...] = field(default=())
     #: nodes at the geometry's corners: ends of open curves and points where two or more curves meet
     corner_nodes: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    splits: int = 0  # how many times every triangle of gmsh's mesh was split into four
 
     def __post_init__(self) -> None:
         if self.points.ndim != 2 or self.points.shape[1] != 2:
@@ -87,8 +94,8 @@ def _quiet(gmsh) -> None:
     gmsh.logger.start()
 
 
-def _gmsh_messages(gmsh, level: str) -> list[str]:
-    return [m.split(":", 1)[1].strip() for m in gmsh.logger.get() if m.startswith(level + ":")]
+def _gmsh_messages(gmsh, level: str, earlier: list[str] | tuple[str, ...] = ()) -> list[str]:
+    return [m.split(":", 1)[1].strip() for m in [*earlier, *gmsh.logger.get()] if m.startswith(level + ":")]
 
 
 def mesh_geometry(
@@ -340,6 +347,35 @@ def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, cur
         gmsh.model.mesh.field.setAsBackgroundMesh(combined)
 
 
+def _automatic_splits(gmsh) -> tuple[int, list[str]]:
+    """Choose k for a mesh whose refinements are left to the tool; leaves gmsh's mesh in place if it is the
+    coarse mesh for that k, else none. Returns k and gmsh's messages from before the probe if the probe's
+    own were dropped (with its mesh).
+
+    A mesh 2**3 times coarser costs about 1/64 of the final one and predicts its node count (nodes ~ 1/h^2).
+    Above ``AUTO_SPLIT_ABOVE`` predicted nodes, k is chosen so gmsh meshes about ``AUTO_COARSE_NODES``.
+    A geometry that gmsh cannot mesh that coarsely is meshed at its final size.
+    """
+    earlier = gmsh.logger.get()
+    gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**_PROBE_SPLITS)
+    try:
+        gmsh.model.mesh.generate(2)
+        probe = gmsh.model.mesh.getNodes()[0].size
+    except Exception:
+        probe = 0
+    predicted = probe * 4**_PROBE_SPLITS
+    splits = 0
+    if probe and predicted > AUTO_SPLIT_ABOVE:
+        splits = min(MAX_REFINEMENTS, max(1, round(math.log(predicted / AUTO_COARSE_NODES, 4))))
+    if splits == _PROBE_SPLITS and probe:
+        return splits, []  # the probe is the coarse mesh: it and its messages stay
+    gmsh.model.mesh.clear()
+    gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**splits)
+    gmsh.logger.stop()  # the probe's messages (an error, if it failed) are not the model's
+    gmsh.logger.start()
+    return splits, earlier
+
+
 def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_names,
                         size_field: SizeField | None = None) -> RawMesh:
     surfaces = _physical_groups(gmsh, 2)
@@ -354,19 +390,23 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
             f"Physical Surface(\"my_region\") = {{{loose[0]}}}; and map it in [regions] (or make it a hole)"
         )
     _apply_sizes(gmsh, settings, scale, surfaces, curves, electrode_names & (set(surfaces) | set(curves)), size_field)
-    if settings.refinements:  # mesh coarser by 2**k here, then split each triangle into four, k times
-        gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**settings.refinements)
     # linear triangles from gmsh whatever the script asks (Mesh.ElementOrder): curved elements get their
     # mid-edge nodes here, after the splitting, from [mesh] curved
     gmsh.option.setNumber("Mesh.ElementOrder", 1)
-    try:
-        gmsh.model.mesh.generate(2)
-    except Exception as exc:
-        raise MeshError(f"gmsh could not mesh the geometry: {exc}; check for overlapping or open curves") from None
-    errors = _gmsh_messages(gmsh, "Error")
+    splits, earlier = settings.refinements, []
+    if splits is None:
+        splits, earlier = _automatic_splits(gmsh)
+    else:  # mesh coarser by 2**k here, then split each triangle into four, k times
+        gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**splits)
+    if not gmsh.model.mesh.getNodes()[0].size:  # (the automatic choice may have kept its probe mesh)
+        try:
+            gmsh.model.mesh.generate(2)
+        except Exception as exc:
+            raise MeshError(f"gmsh could not mesh the geometry: {exc}; check for overlapping or open curves") from None
+    errors = _gmsh_messages(gmsh, "Error", earlier)
     if errors:
         raise MeshError(f"gmsh reported a meshing error: {errors[0]}; check the geometry")
-    warnings = tuple(_gmsh_messages(gmsh, "Warning"))
+    warnings = tuple(_gmsh_messages(gmsh, "Warning", earlier))
 
     node_tags, coords, _ = gmsh.model.mesh.getNodes()
     node_tags = node_tags.astype(np.int64)
@@ -419,9 +459,9 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
         return np.where(jumped[:, None], midpoints, projected)
 
     # splitting in numpy (with gmsh's projection onto the curves) is much cheaper than gmsh's refine
-    for _ in range(settings.refinements):
+    for _ in range(splits):
         coords, triangles, entity_segments = split_into_four(coords, triangles, entity_segments, snap_segments)
-    entity_rows = {e: (a * 4**settings.refinements, b * 4**settings.refinements) for e, (a, b) in entity_rows.items()}
+    entity_rows = {e: (a * 4**splits, b * 4**splits) for e, (a, b) in entity_rows.items()}
     if settings.curved:
         coords, triangles = with_mid_edge_nodes(coords, triangles, entity_segments, snap_segments)
 
@@ -462,4 +502,4 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
     points = np.ascontiguousarray(coords[:, :2] * scale, dtype=np.float64)
     if not math.isfinite(float(points.sum())):
         raise MeshError("gmsh returned non-finite node coordinates")
-    return RawMesh(points, triangles, surface_groups, curve_groups, warnings, corner_nodes[corner_nodes >= 0])
+    return RawMesh(points, triangles, surface_groups, curve_groups, warnings, corner_nodes[corner_nodes >= 0], splits)

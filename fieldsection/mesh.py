@@ -38,6 +38,7 @@ class SectionMesh:
     gmsh_warnings: tuple[str, ...] = field(default=())
     open_circle: "OpenCircle | None" = None
     corner_vertices: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # geometry corners
+    uniform_splits: int = 0  # times gmsh's triangles were split into four (``[mesh] refinements``, or chosen)
 
     @property
     def exterior(self) -> np.ndarray:
@@ -254,7 +255,7 @@ def add_open_space(raw: RawMesh, circle: OpenCircle) -> RawMesh:
                 curve_groups[name] = np.concatenate([curve_groups[name], spoke])
     rows = np.arange(len(raw.triangles), len(raw.triangles) + len(triangles))
     return RawMesh(points, np.concatenate([raw.triangles, triangles]), {**raw.surface_groups, EXTERIOR: rows},
-                   curve_groups, raw.warnings, raw.corner_nodes)
+                   curve_groups, raw.warnings, raw.corner_nodes, raw.splits)
 
 
 def _spokes(points: np.ndarray, exterior: np.ndarray, circle: OpenCircle, n_old: int) -> list[np.ndarray]:
@@ -330,7 +331,7 @@ def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> S
     _check_conforming(base, names, region_of_element, drawn)
     geometry_corners = remap[raw.corner_nodes]
     return SectionMesh(mesh, names, region_of_element, curve_facets, raw.warnings, open_circle,
-                       np.unique(geometry_corners[geometry_corners >= 0]))
+                       np.unique(geometry_corners[geometry_corners >= 0]), raw.splits)
 
 
 def largest_at_vertices(mesh: MeshTri1 | MeshTri2, elements: np.ndarray, values: np.ndarray

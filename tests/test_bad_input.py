@@ -254,9 +254,9 @@ def test_insulation_touching_no_electrode_is_refused(tmp_path, capsys):
     ('[mesh]\ncurved = "false"', r"mesh\.curved = 'false': must be true or false"),
     ("[mesh]\nelement_order = true", r"mesh\.element_order = True: must be a whole number"),
     ("[mesh]\nelement_order = 2.0", r"mesh\.element_order = 2\.0: must be a whole number"),
-    ("[mesh]\nrefinements = -1", r"mesh\.refinements = -1: a whole number from 0 to 6"),
-    ("[mesh]\nrefinements = 9", r"mesh\.refinements = 9: a whole number from 0 to 6"),
-    ('[mesh]\nrefinements = "2"', r"mesh\.refinements = '2': must be a whole number"),
+    ("[mesh]\nrefinements = -1", r"mesh\.refinements = -1: \"auto\" or a whole number from 0 to 6"),
+    ("[mesh]\nrefinements = 9", r"mesh\.refinements = 9: \"auto\" or a whole number from 0 to 6"),
+    ('[mesh]\nrefinements = "2"', r"mesh\.refinements = '2': must be \"auto\" or a whole number"),
     ('[solver]\nmethod = "cholesky"', r"solver\.method = 'cholesky': use one of 'auto', 'direct', 'iterative'"),
     ('[solver]\nmthod = "direct"', r"\[solver\]: unknown key 'mthod'; allowed keys: method"),
 ])

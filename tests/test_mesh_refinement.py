@@ -108,3 +108,17 @@ def test_a_script_asking_for_second_order_elements_is_meshed_as_the_case_says(tm
                 {"insulation": Material("test dielectric", EPS_R, 20e6)}, {"inner": V, "outer": 0.0},
                 mesh=MeshSettings(element_order=2, curved=True, refinements=1), refinement=SINGLE_MESH)
 
+
+
+def test_big_meshes_are_split_automatically(monkeypatch):
+    from fieldsection import gmsh_adapter
+
+    # a small model is meshed at its final size when refinements is left to the tool
+    assert coax(0.2, None).section.uniform_splits == 0
+    # lower the threshold so this small model counts as big: gmsh meshes it coarser, then it is split
+    monkeypatch.setattr(gmsh_adapter, "AUTO_SPLIT_ABOVE", 2_000)
+    monkeypatch.setattr(gmsh_adapter, "AUTO_COARSE_NODES", 300)
+    result = coax(0.1, None, order=1, curved=False)
+    assert result.section.uniform_splits >= 2
+    # P1 on a polygon at 0.1 mm: about 1.4e-5 (see above); the same size reached by splitting
+    assert relative_error(result) < 1e-4
