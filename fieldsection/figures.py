@@ -17,6 +17,8 @@ hotspot markers are drawn as lines and markers at their true positions.
 
 from __future__ import annotations
 
+import weakref
+
 import os
 from pathlib import Path
 
@@ -108,10 +110,14 @@ class _Binned:
     Elements too small to hold a pixel centre are added by their centroid's pixel, and the largest
     value wins where several meet ("max": |E|, so no peak is lost at screen resolution); vertex
     values ("linear") are interpolated at the pixel centres. ``window`` (x0, x1, y0, y1) in mm.
+    Every drawn element is binned once (the figures of a report share it, see ``_binned``); ``only``
+    picks the elements an image shows.
     """
 
-    def __init__(self, problem: AssembledProblem, shown: np.ndarray, window: tuple[float, ...] | None = None):
+    def __init__(self, problem: AssembledProblem, window: tuple[float, ...] | None = None):
         mesh = problem.section.mesh
+        shown = ~problem.section.exterior
+        self.problem, self.window = weakref.ref(problem), window
         xy = _vertices_mm(problem)
         corners = xy[:, mesh.t]  # (2, 3, nelements)
         low, high = corners.min(axis=1), corners.max(axis=1)
@@ -156,20 +162,26 @@ class _Binned:
         self._t = mesh.t
         self._whole_view = window is None
 
-    def image(self, values: np.ndarray, how: str = "max") -> np.ma.MaskedArray:
-        """Per element ``values`` ("max"), or per vertex values interpolated linearly ("linear")."""
+    def image(self, values: np.ndarray, how: str = "max", only: np.ndarray | None = None) -> np.ma.MaskedArray:
+        """Per element ``values`` ("max"), or per vertex values interpolated linearly ("linear"), over the
+        elements where ``only`` (per element) is true (all drawn ones by default)."""
         flat = np.full(self.nx * self.ny, np.nan)
+        element, pixel, tiny, tiny_pixel, weights = self._element, self._pixel, self._tiny, self._tiny_pixel, self._weights
+        if only is not None:
+            keep, keep_tiny = only[element], only[tiny]
+            element, pixel, weights = element[keep], pixel[keep], weights[keep]
+            tiny, tiny_pixel = tiny[keep_tiny], tiny_pixel[keep_tiny]
         if how == "linear":
-            flat[self._pixel] = (values[self._t[:, self._element]].T * self._weights).sum(axis=1)
+            flat[pixel] = (values[self._t[:, element]].T * weights).sum(axis=1)
         else:
-            pixels = np.concatenate([self._pixel, self._tiny_pixel])
-            v = np.concatenate([values[self._element], values[self._tiny]])
+            pixels = np.concatenate([pixel, tiny_pixel])
+            v = np.concatenate([values[element], values[tiny]])
             order = np.argsort(v, kind="stable")
             flat[pixels[order]] = v[order]  # increasing order: the largest value lands last
         return np.ma.masked_invalid(flat.reshape(self.ny, self.nx))
 
-    def draw(self, ax: Axes, values: np.ndarray, how: str = "max", **style):
-        picture = ax.imshow(self.image(values, how), extent=self.extent, origin="lower", interpolation="nearest",
+    def draw(self, ax: Axes, values: np.ndarray, how: str = "max", only: np.ndarray | None = None, **style):
+        picture = ax.imshow(self.image(values, how, only), extent=self.extent, origin="lower", interpolation="nearest",
                             aspect="equal", **style)
         if self._whole_view:  # the same margins as the drawn meshes of smaller models
             x0, x1, y0, y1 = self.extent
@@ -177,6 +189,20 @@ class _Binned:
             ax.set_xlim(x0 - dx, x1 + dx)
             ax.set_ylim(y0 - dy, y1 + dy)
         return picture
+
+
+_BINNINGS: list[_Binned] = []  # of the last model drawn: a report draws five figures of one model
+
+
+def _binned(problem: AssembledProblem, window: tuple[float, ...] | None = None) -> _Binned:
+    """The pixel binning of ``problem`` for ``window``, made once per model and window."""
+    if any(b.problem() is not problem for b in _BINNINGS):
+        _BINNINGS.clear()  # another model: the old binnings are of no further use
+    found = next((b for b in _BINNINGS if b.window == window), None)
+    if found is None:
+        found = _Binned(problem, window)
+        _BINNINGS.append(found)
+    return found
 
 
 def _big(problem: AssembledProblem) -> bool:
@@ -189,7 +215,7 @@ def _fill_regions(ax: Axes, problem: AssembledProblem, strength: float = 1.0) ->
     style = dict(cmap=ListedColormap(colours), vmin=-0.5, vmax=len(colours) - 0.5)
     regions = problem.section.region_of_element.astype(float)
     if _big(problem):
-        _Binned(problem, ~problem.section.exterior).draw(ax, regions, **style)
+        _binned(problem).draw(ax, regions, **style)
         return
     ax.tripcolor(_triangulation(problem), facecolors=regions, **style)
 
@@ -330,7 +356,7 @@ def plot_potential(solution: Solution, path: str | os.PathLike) -> Path:
 def _plot_potential_binned(problem: AssembledProblem, values: np.ndarray, low: float, high: float, unit: str,
                            fig: Figure, ax: Axes, path) -> Path:
     """The potential of a big mesh: element means binned into pixels, equipotentials from that image."""
-    binned = _Binned(problem, ~problem.section.exterior)
+    binned = _binned(problem)
     image = binned.image(values, "linear")
     picture = binned.draw(ax, values, "linear", cmap="cividis", norm=Normalize(low, high))
     x0, x1, y0, y1 = binned.extent
@@ -401,12 +427,10 @@ def plot_field(problem: AssembledProblem, fields: ElementFields, hotspots: Hotsp
     norm = Normalize(0.0, (scale_top if above else top) if top > 0 else 1.0)
     window = _detail_window(problem, fields, hotspots) if detail else None
     if _big(problem):
-        drawn = dielectric & ~problem.section.exterior
-        shading = _Binned(problem, drawn, window).draw(ax, peak, cmap="YlOrRd", norm=norm)
-        conductor = ~dielectric & ~problem.section.exterior
-        if conductor.any():
-            _Binned(problem, conductor, window).draw(ax, np.zeros(mesh.nelements),
-                                                     cmap=ListedColormap([_CONDUCTOR_FILL]))
+        binned = _binned(problem, window)
+        shading = binned.draw(ax, peak, only=dielectric, cmap="YlOrRd", norm=norm)
+        if (~dielectric).any():
+            binned.draw(ax, np.zeros(mesh.nelements), only=~dielectric, cmap=ListedColormap([_CONDUCTOR_FILL]))
     else:
         shading = ax.tripcolor(_triangulation(problem, mask=~dielectric), facecolors=peak, cmap="YlOrRd", norm=norm)
         if (~dielectric).any():  # meshed conductors: flat grey, no field drawn
