@@ -46,10 +46,26 @@ CG_TOLERANCE = 1e-10
 CG_MAX_ITERATIONS = 1000
 
 
+class Handoff:
+    """The reduced matrix on its way to a solver backend, which takes it over: the caller keeps no reference
+    while the backend factorises (the backends convert it to the format they need, ~80 MB at 1e6 unknowns).
+    A backend whose package is missing raises ImportError before taking it, so the next one can."""
+
+    def __init__(self, matrix: sp.csr_matrix):
+        self._matrix = matrix
+
+    def take(self) -> sp.csr_matrix:
+        matrix, self._matrix = self._matrix, None
+        if matrix is None:
+            raise RuntimeError("the reduced matrix was already taken by another solver backend")
+        return matrix
+
+
 class _SuperLU:
     name = "SuperLU"
 
-    def __init__(self, matrix: sp.csc_matrix):
+    def __init__(self, handoff: Handoff):
+        matrix = handoff.take().tocsc()
         try:
             if matrix.shape[0] <= ITERATIVE_ABOVE:
                 # K is symmetric positive definite: symmetric ordering, no pivoting (faster than the defaults)
@@ -75,7 +91,7 @@ PARDISO_SETTINGS = ((1, 1), (2, 3), (10, 8), (18, -1), (24, 1))
 class _Pardiso:
     name = "PARDISO"
 
-    def __init__(self, matrix: sp.csc_matrix):
+    def __init__(self, handoff: Handoff):
         _point_pypardiso_at_mkl()
         import pypardiso  # optional: pip install "fieldsection[fast]"
 
@@ -87,7 +103,7 @@ class _Pardiso:
         # the 4-column solve twice as fast again). The residual stays ~1e-11 and the caller checks it.
         for number, value in PARDISO_SETTINGS:
             self._solver.set_iparm(number, value)
-        self._upper = sp.triu(matrix, format="csr")
+        self._upper = sp.triu(handoff.take(), format="csr")  # the full matrix is freed here, before factorising
         self._upper.sort_indices()
         try:
             self._solver.factorize(self._upper)
@@ -105,11 +121,11 @@ class _Pardiso:
 class _AmgCg:
     name = "AMG-CG"
 
-    def __init__(self, matrix: sp.csc_matrix):
+    def __init__(self, handoff: Handoff):
         import pyamg
         from scipy.sparse.csgraph import reverse_cuthill_mckee
 
-        csr = matrix.tocsr()
+        csr = handoff.take().tocsr()
         # gmsh's numbering scatters neighbours; RCM makes mat-vecs and the multigrid 2-4x faster
         self._order = reverse_cuthill_mckee(csr, symmetric_mode=True)
         self._matrix = csr[self._order][:, self._order]
@@ -211,15 +227,17 @@ class FactorisedSystem:
         if self._T.shape[1] == 0:
             raise SolverError("no free degrees of freedom: every node is on an electrode; refine the mesh")
         if floating:
-            reduced = (self._T.T @ (problem.stiffness @ self._T)).tocsc()
+            reduced = (self._T.T @ (problem.stiffness @ self._T)).tocsr()
         else:  # T only picks the free DOFs: slicing is several times faster than two sparse products
-            reduced = problem.stiffness[free][:, free].tocsc()
+            reduced = problem.stiffness[free][:, free]
         self._n = reduced.shape[0]
         self._check_determined(reduced, n_free)
+        handoff = Handoff(reduced)
+        del reduced
         missing = []
         for name in solver_chain(method, self._n):
             try:
-                self._backend = _BACKENDS[name](reduced)
+                self._backend = _BACKENDS[name](handoff)
                 break
             except ImportError:  # an optional solver that is not installed: the next one
                 missing.append(name)
@@ -237,7 +255,7 @@ class FactorisedSystem:
         """Release the factorisation (PARDISO keeps it in MKL's memory until told)."""
         self._backend.close()
 
-    def _check_determined(self, reduced: sp.csc_matrix, n_free: int) -> None:
+    def _check_determined(self, reduced: sp.csr_matrix, n_free: int) -> None:
         """Each connected part of the unknowns must couple to a fixed potential, or its potential is undefined.
 
         (Without pivoting the factorisation would not notice, and return a meaningless potential.)
