@@ -13,8 +13,11 @@ benchmarks/results/<date-time>.json.
 Measured, at each size:
 - bare gmsh: 2D meshing alone at the final size with the Delaunay (5) and Frontal-Delaunay (6)
   algorithms, and meshing 2**k coarser then splitting every triangle k times (gmsh's ``refine``);
+  and gmsh 2**k coarser followed by fieldsection's numpy split (the fastest way found to the same
+  mesh, so the pipeline's end-to-end ratio is held to it);
 - bare solvers: each available sparse solver alone on the same reduced matrix and one right-hand
   side, loaded from a file in a fresh process (so its memory is the matrix and the solver only);
+  PARDISO both with MKL's defaults and with the settings the pipeline uses;
 - fieldsection's pipeline, stage by stage with the peak memory after each stage, without and with
   figures, with ``[mesh] refinements = k`` chosen so the coarse mesh has about 25 000 nodes;
 - the capacitance matrix: the pipeline's solver set up once, solved for one conductor and for all;
