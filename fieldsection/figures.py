@@ -205,6 +205,11 @@ def _binned(problem: AssembledProblem, window: tuple[float, ...] | None = None) 
     return found
 
 
+def forget_binnings() -> None:
+    """Drop the pixel binnings kept for the figures of the last model (tens of MB for a big mesh)."""
+    _BINNINGS.clear()
+
+
 def _big(problem: AssembledProblem) -> bool:
     return problem.section.mesh.nelements > RASTERISE_ABOVE
 

@@ -80,11 +80,14 @@ def write_report(
                 ("bound_charge.png", "Bound surface charge density on material faces",
                  lambda p: fig.plot_bound_charge(result.problem, result.charges, p)),
             ]
-            for name, caption, draw in plots:
-                if on_step:
-                    on_step(f"figure {name}")
-                draw(staging / name)
-                figure_list.append({"file": name, "caption": caption})
+            try:
+                for name, caption, draw in plots:
+                    if on_step:
+                        on_step(f"figure {name}")
+                    draw(staging / name)
+                    figure_list.append({"file": name, "caption": caption})
+            finally:
+                fig.forget_binnings()  # the figures of this model are drawn: its pixel binnings can go
         if on_step:
             on_step(FIELDS_FILE)
         write_vtk(result.problem, result.solution, result.fields, result.hotspots, staging / FIELDS_FILE)
