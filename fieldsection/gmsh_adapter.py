@@ -347,17 +347,18 @@ def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, cur
         gmsh.model.mesh.field.setAsBackgroundMesh(combined)
 
 
-def _automatic_splits(gmsh) -> tuple[int, list[str]]:
+def _automatic_splits(gmsh) -> tuple[int, list[str], bool]:
     """Choose k for a mesh whose refinements are left to the tool; leaves gmsh's mesh in place if it is the
-    coarse mesh for that k, else none. Returns k and gmsh's messages from before the probe if the probe's
-    own were dropped (with its mesh).
+    coarse mesh for that k, else none. Returns k, gmsh's messages from before the probe if the probe's
+    own were dropped (with its mesh), and whether the probe's mesh is kept.
 
     A mesh 2**3 times coarser costs about 1/64 of the final one and predicts its node count (nodes ~ 1/h^2).
     Above ``AUTO_SPLIT_ABOVE`` predicted nodes, k is chosen so gmsh meshes about ``AUTO_COARSE_NODES``.
     A geometry that gmsh cannot mesh that coarsely is meshed at its final size.
     """
     earlier = gmsh.logger.get()
-    gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**_PROBE_SPLITS)
+    own_factor = gmsh.option.getNumber("Mesh.MeshSizeFactor")  # a script's own factor scales everything
+    gmsh.option.setNumber("Mesh.MeshSizeFactor", own_factor * 2.0**_PROBE_SPLITS)
     try:
         gmsh.model.mesh.generate(2)
         probe = gmsh.model.mesh.getNodes()[0].size
@@ -368,12 +369,12 @@ def _automatic_splits(gmsh) -> tuple[int, list[str]]:
     if probe and predicted > AUTO_SPLIT_ABOVE:
         splits = min(MAX_REFINEMENTS, max(1, round(math.log(predicted / AUTO_COARSE_NODES, 4))))
     if splits == _PROBE_SPLITS and probe:
-        return splits, []  # the probe is the coarse mesh: it and its messages stay
+        return splits, [], True  # the probe is the coarse mesh: it and its messages stay
     gmsh.model.mesh.clear()
-    gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**splits)
+    gmsh.option.setNumber("Mesh.MeshSizeFactor", own_factor * 2.0**splits)
     gmsh.logger.stop()  # the probe's messages (an error, if it failed) are not the model's
     gmsh.logger.start()
-    return splits, earlier
+    return splits, earlier, False
 
 
 def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_names,
@@ -393,12 +394,12 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
     # linear triangles from gmsh whatever the script asks (Mesh.ElementOrder): curved elements get their
     # mid-edge nodes here, after the splitting, from [mesh] curved
     gmsh.option.setNumber("Mesh.ElementOrder", 1)
-    splits, earlier = settings.refinements, []
+    splits, earlier, meshed = settings.refinements, [], False
     if splits is None:
-        splits, earlier = _automatic_splits(gmsh)
-    else:  # mesh coarser by 2**k here, then split each triangle into four, k times
-        gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**splits)
-    if not gmsh.model.mesh.getNodes()[0].size:  # (the automatic choice may have kept its probe mesh)
+        splits, earlier, meshed = _automatic_splits(gmsh)
+    else:  # mesh coarser by 2**k here (on top of a script's own factor), then split into four, k times
+        gmsh.option.setNumber("Mesh.MeshSizeFactor", gmsh.option.getNumber("Mesh.MeshSizeFactor") * 2.0**splits)
+    if not meshed:
         try:
             gmsh.model.mesh.generate(2)
         except Exception as exc:

@@ -122,3 +122,15 @@ def test_big_meshes_are_split_automatically(monkeypatch):
     assert result.section.uniform_splits >= 2
     # P1 on a polygon at 0.1 mm: about 1.4e-5 (see above); the same size reached by splitting
     assert relative_error(result) < 1e-4
+
+
+def test_a_scripts_own_size_factor_still_applies(tmp_path):
+    # Mesh.MeshSizeFactor in a script scales its sizes; the automatic choice (and k) must keep it:
+    # half the sizes, about four times the nodes (nodes ~ 1/h^2 in 2D; common practice, no source)
+    script = tmp_path / "coaxial_finer.geo"
+    script.write_text((GEOMETRIES / "coaxial.geo").read_text() + "\nMesh.MeshSizeFactor = 0.5;\n")
+    plain = coax(0.4, None, order=1, curved=False).section.mesh.nvertices
+    case = Case("coaxial", ScriptGeometry(script, {"lc": 0.4}, 1e-3),
+                {"insulation": Material("test dielectric", EPS_R, 20e6)}, {"inner": V, "outer": 0.0},
+                mesh=MeshSettings(element_order=1, curved=False), refinement=SINGLE_MESH)
+    assert analyse(case).section.mesh.nvertices == pytest.approx(4 * plain, rel=0.25)
