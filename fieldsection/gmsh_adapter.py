@@ -35,6 +35,8 @@ AUTO_SPLIT_ABOVE = 100_000
 #: ... so that gmsh meshes about this many nodes
 AUTO_COARSE_NODES = 25_000
 _PROBE_SPLITS = 3  # the automatic choice first meshes 2**3 times coarser, to predict the node count
+#: a mesh predicted above this many nodes is refused (a wrong unit or size, not a model to solve here)
+AUTO_LARGEST_PREDICTED = 20_000_000
 
 # gmsh element type codes (see gmsh's documentation, "MSH file format")
 _LINE2, _TRI3 = 1, 2
@@ -349,30 +351,44 @@ def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, cur
 
 def _automatic_splits(gmsh) -> tuple[int, list[str], bool]:
     """Choose k for a mesh whose refinements are left to the tool; leaves gmsh's mesh in place if it is the
-    coarse mesh for that k, else none. Returns k, gmsh's messages from before the probe if the probe's
-    own were dropped (with its mesh), and whether the probe's mesh is kept.
+    coarse mesh for that k, else none. Returns k, gmsh's messages from before the probes (the logger then
+    holds only the kept probe's, if any) and whether the last probe's mesh is kept.
 
     A mesh 2**3 times coarser costs about 1/64 of the final one and predicts its node count (nodes ~ 1/h^2).
+    A second probe 2**4 times coarser checks that the mesh follows the size factor at all: transfinite
+    curves and surfaces keep their node counts, and splitting those would multiply the mesh by 4**k.
     Above ``AUTO_SPLIT_ABOVE`` predicted nodes, k is chosen so gmsh meshes about ``AUTO_COARSE_NODES``.
     A geometry that gmsh cannot mesh that coarsely is meshed at its final size.
     """
     earlier = gmsh.logger.get()
     own_factor = gmsh.option.getNumber("Mesh.MeshSizeFactor")  # a script's own factor scales everything
-    gmsh.option.setNumber("Mesh.MeshSizeFactor", own_factor * 2.0**_PROBE_SPLITS)
-    try:
-        gmsh.model.mesh.generate(2)
-        probe = gmsh.model.mesh.getNodes()[0].size
-    except Exception:
-        probe = 0
+    counts = {}
+    for probe_splits in (_PROBE_SPLITS + 1, _PROBE_SPLITS):
+        gmsh.logger.stop()  # each probe's messages apart: only the kept probe's may stay
+        gmsh.logger.start()
+        gmsh.option.setNumber("Mesh.MeshSizeFactor", own_factor * 2.0**probe_splits)
+        try:
+            gmsh.model.mesh.clear()  # generate() keeps an existing mesh of the curves
+            gmsh.model.mesh.generate(2)
+            failed = bool(_gmsh_messages(gmsh, "Error"))
+            counts[probe_splits] = 0 if failed else gmsh.model.mesh.getNodes()[0].size
+        except Exception:
+            counts[probe_splits] = 0
+    probe, coarser = counts[_PROBE_SPLITS], counts[_PROBE_SPLITS + 1]
     predicted = probe * 4**_PROBE_SPLITS
+    # ~4x the nodes per halving of the sizes; a transfinite mesh keeps its count (1x)
+    follows = probe > 0 and coarser > 0 and probe >= 2.5 * coarser
     splits = 0
-    if probe and predicted > AUTO_SPLIT_ABOVE:
+    if follows and predicted > AUTO_LARGEST_PREDICTED:
+        raise MeshError(f"the mesh would have about {predicted:.2g} nodes; check the length unit and the mesh sizes "
+                        "(case [mesh] or the script's own), or set [mesh] refinements to mesh it anyway")
+    if follows and predicted > AUTO_SPLIT_ABOVE:
         splits = min(MAX_REFINEMENTS, max(1, round(math.log(predicted / AUTO_COARSE_NODES, 4))))
-    if splits == _PROBE_SPLITS and probe:
-        return splits, [], True  # the probe is the coarse mesh: it and its messages stay
+    if splits == _PROBE_SPLITS:
+        return splits, earlier, True  # the last probe is the coarse mesh: it and its messages stay
     gmsh.model.mesh.clear()
     gmsh.option.setNumber("Mesh.MeshSizeFactor", own_factor * 2.0**splits)
-    gmsh.logger.stop()  # the probe's messages (an error, if it failed) are not the model's
+    gmsh.logger.stop()  # the probes' messages (an error, if one failed) are not the model's
     gmsh.logger.start()
     return splits, earlier, False
 
@@ -400,6 +416,19 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
     else:  # mesh coarser by 2**k here (on top of a script's own factor), then split into four, k times
         gmsh.option.setNumber("Mesh.MeshSizeFactor", gmsh.option.getNumber("Mesh.MeshSizeFactor") * 2.0**splits)
     if not meshed:
+        try:
+            gmsh.model.mesh.clear()  # a script's own "Mesh 2;" would otherwise be kept as it is
+            gmsh.model.mesh.generate(2)
+        except Exception as exc:
+            if settings.refinements is not None or splits == 0:
+                raise MeshError(f"gmsh could not mesh the geometry: {exc}; check for overlapping or open curves") from None
+    if settings.refinements is None and splits and (_gmsh_messages(gmsh, "Error") or not gmsh.model.mesh.getNodes()[0].size):
+        # the tool's own choice to mesh coarser failed: mesh at the final size instead
+        gmsh.model.mesh.clear()
+        gmsh.option.setNumber("Mesh.MeshSizeFactor", gmsh.option.getNumber("Mesh.MeshSizeFactor") / 2.0**splits)
+        gmsh.logger.stop()
+        gmsh.logger.start()
+        splits = 0
         try:
             gmsh.model.mesh.generate(2)
         except Exception as exc:

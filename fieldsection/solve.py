@@ -96,7 +96,9 @@ class _Pardiso:
         import pypardiso  # optional: pip install "fieldsection[fast]"
 
         # a solver object of our own: pypardiso's module-level spsolve keeps a global factorisation
-        self._solver = pypardiso.PyPardisoSolver(mtype=2)  # real symmetric positive definite
+        # real symmetric positive definite; size_limit_storage=0: pypardiso keeps a hash of the matrix to
+        # recognise it, not a copy (~50 MB at a million unknowns)
+        self._solver = pypardiso.PyPardisoSolver(mtype=2, size_limit_storage=0)
         # With MKL's defaults (iparm(1) = 0) the solve phase took 3-5x as long here (1e6 unknowns, 4 columns).
         # iparm(1) = 1 means every entry is ours, unset ones 0 (1-based numbers): nested dissection with
         # OpenMP, pivot perturbation 1e-8, fill-in reported, two-level parallel factorisation (measured:
@@ -288,7 +290,8 @@ class FactorisedSystem:
         """Full DOF vectors for the columns of ``lifts`` (ndofs, k; overwritten with the result) and ``charges``.
 
         Column by column into Fortran order (which PARDISO takes without a copy): beside a million-node
-        factorisation no (ndofs, k) temporaries are held, ~0.1 GB less peak memory."""
+        factorisation fewer (ndofs, k) temporaries are held (~0.1 GB less peak memory; pypardiso still
+        returns its solution as one more copy)."""
         stiffness, T = self.problem.stiffness, self._T
         rhs = np.empty((self._n, lifts.shape[1]), order="F")
         for column in range(lifts.shape[1]):  # a few conductors, not a loop over the mesh

@@ -107,6 +107,7 @@ def test_a_script_asking_for_second_order_elements_is_meshed_as_the_case_says(tm
     case = Case("coaxial", ScriptGeometry(script, {"lc": 0.4}, 1e-3),
                 {"insulation": Material("test dielectric", EPS_R, 20e6)}, {"inner": V, "outer": 0.0},
                 mesh=MeshSettings(element_order=2, curved=True, refinements=1), refinement=SINGLE_MESH)
+    assert relative_error(analyse(case)) < 1e-4  # curved P2 at 0.2 mm: about 2e-5
 
 
 
@@ -118,10 +119,35 @@ def test_big_meshes_are_split_automatically(monkeypatch):
     # lower the threshold so this small model counts as big: gmsh meshes it coarser, then it is split
     monkeypatch.setattr(gmsh_adapter, "AUTO_SPLIT_ABOVE", 2_000)
     monkeypatch.setattr(gmsh_adapter, "AUTO_COARSE_NODES", 300)
-    result = coax(0.1, None, order=1, curved=False)
+    result = coax(0.05, None, order=1, curved=False)
     assert result.section.uniform_splits >= 2
-    # P1 on a polygon at 0.1 mm: about 1.4e-5 (see above); the same size reached by splitting
+    # P1 on a polygon at 0.05 mm: well below 1e-4 (about 1.4e-5 at 0.1 mm, see above), also when split
     assert relative_error(result) < 1e-4
+    # k = 3 keeps the probe mesh (8x coarser) as the coarse mesh
+    monkeypatch.setattr(gmsh_adapter, "AUTO_COARSE_NODES", 12_000 / 64)
+    assert coax(0.05, None, order=1, curved=False).section.uniform_splits == 3
+
+
+def test_transfinite_meshes_are_not_split_automatically(tmp_path, monkeypatch):
+    # a transfinite mesh keeps its node counts whatever the size factor: splitting it would make it 4^k
+    # times finer than the script asks (counts: (n + 1)^2 nodes for n x n divisions, elementary)
+    from fieldsection import gmsh_adapter
+
+    monkeypatch.setattr(gmsh_adapter, "AUTO_SPLIT_ABOVE", 1_000)
+    script = tmp_path / "slab.geo"
+    script.write_text(
+        "Point(1) = {0, 0, 0, 1}; Point(2) = {10, 0, 0, 1}; Point(3) = {10, 1, 0, 1}; Point(4) = {0, 1, 0, 1};\n"
+        "Line(1) = {1, 2}; Line(2) = {2, 3}; Line(3) = {3, 4}; Line(4) = {4, 1};\n"
+        "Curve Loop(1) = {1, 2, 3, 4}; Plane Surface(1) = {1};\n"
+        "Transfinite Curve{1, 2, 3, 4} = 41; Transfinite Surface{1};\n"
+        "Physical Surface(\"gap\") = {1}; Physical Curve(\"bottom\") = {1}; Physical Curve(\"top\") = {3};\n")
+    case = Case("slab", ScriptGeometry(script, {}, 1e-3), {"gap": Material("test dielectric", EPS_R, 20e6)},
+                {"top": V, "bottom": 0.0}, outer_boundary="insulated",
+                mesh=MeshSettings(element_order=1, curved=False), refinement=SINGLE_MESH)
+    result = analyse(case)
+    assert result.section.uniform_splits == 0 and result.section.mesh.nvertices == 41 * 41
+    # and the field of a uniform slab is V / d everywhere (Gauss's law)
+    np.testing.assert_allclose(result.fields.E_magnitude, V / 1e-3, rtol=1e-9)
 
 
 def test_a_scripts_own_size_factor_still_applies(tmp_path):
