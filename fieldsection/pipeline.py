@@ -8,7 +8,7 @@ error indicator, until the capacitance and every non-singular peak field settle.
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields as dataclass_fields
 from typing import Callable, Mapping
 
 import numpy as np
@@ -46,16 +46,22 @@ class Certificates:
 
 
 @dataclass(frozen=True)
-class SectionResult:
-    """Everything computed for one case (on the last mesh); the report stage only reads it."""
+class _Computed:
+    """What one pass computes on its mesh, from the mesh to the capacitance."""
 
-    case: Case
     section: SectionMesh
     problem: AssembledProblem
     solution: Solution
     fields: ElementFields
     charges: ChargeResult
     capacitance: CapacitanceResult
+
+
+@dataclass(frozen=True)
+class SectionResult(_Computed):
+    """Everything computed for one case (on the last mesh); the report stage only reads it."""
+
+    case: Case
     hotspots: HotspotResult
     gas_gaps: tuple[GasGapScreening, ...] = ()
     stage_seconds: dict[str, float] = field(default_factory=dict)
@@ -74,15 +80,9 @@ class SectionResult:
 
 
 @dataclass(frozen=True)
-class _Pass:
+class _Pass(_Computed):
     """One pass of the loop; once a newer pass exists only ``record`` is kept (the rest is None)."""
 
-    section: SectionMesh
-    problem: AssembledProblem
-    solution: Solution
-    fields: ElementFields
-    charges: ChargeResult
-    capacitance: CapacitanceResult
     recovery: Recovery
     magnitude: np.ndarray  # |E| at element vertices for the peak search (``Recovery.peak_search_field``)
     record: PassRecord
@@ -154,9 +154,10 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
         hotspots, certificates = peaks
     gas_gaps = stage("gas gaps", lambda: screen_gas_gaps(problem, last.fields, case.gas_pressure))
     corona = stage("corona", lambda: screen_corona(problem, last.magnitude, case.gas_pressure))
-    return SectionResult(case, last.section, problem, last.solution, last.fields, last.charges, last.capacitance,
-                         hotspots, gas_gaps, seconds, last.recovery, tuple(p.record for p in passes), certificates,
-                         stop_reason, corona)
+    computed = {f.name: getattr(last, f.name) for f in dataclass_fields(_Computed)}
+    return SectionResult(**computed, case=case, hotspots=hotspots, gas_gaps=gas_gaps, stage_seconds=seconds,
+                         recovery=last.recovery, passes=tuple(p.record for p in passes), certificates=certificates,
+                         stop_reason=stop_reason, corona=corona)
 
 
 def _one_pass(case: Case, size_field: SizeField | None, stage) -> _Pass:
