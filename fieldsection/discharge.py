@@ -138,7 +138,7 @@ def screen_gas_gaps(problem: AssembledProblem, fields: ElementFields, pressure: 
     """One screening per gas region with Paschen constants, lowest margin first."""
     section = problem.section
     mesh = section.mesh
-    walker = _FieldLineWalker(mesh, ~section.exterior, section.region_of_element, fields)
+    walker = _FieldLineWalker(mesh, ~section.exterior, section.region_of_element, fields, section.element_areas)
     out = []
     for name, material in problem.material_of_region.items():
         if material.kind != "gas" or material.paschen is None:
@@ -163,8 +163,9 @@ class _FieldLineWalker:
     among the neighbours of the last element first; a search tree is built only if that fails. The
     open-space image (not ``drawn``) counts as outside."""
 
-    def __init__(self, mesh, drawn: np.ndarray, region_of_element: np.ndarray, fields: ElementFields):
-        self.mesh, self.drawn, self.region, self.fields = mesh, drawn, region_of_element, fields
+    def __init__(self, mesh, drawn: np.ndarray, region_of_element: np.ndarray, fields: ElementFields,
+                 areas: np.ndarray):
+        self.mesh, self.drawn, self.region, self.fields, self.areas = mesh, drawn, region_of_element, fields, areas
         self.x, self.y = mesh.p[0], mesh.p[1]
         self._tree = None
 
@@ -210,8 +211,7 @@ class _FieldLineWalker:
         return -1
 
     def _size(self, k: int) -> float:
-        x, y = self._corners(np.array([k]))
-        return float(np.sqrt(abs((x[1] - x[0]) * (y[2] - y[0]) - (x[2] - x[0]) * (y[1] - y[0]))[0]))
+        return float(np.sqrt(2.0 * self.areas[k]))
 
     def field(self, point: np.ndarray, k: int) -> np.ndarray:
         """E at ``point`` in element k: linear in the vertex values (exact for P1 and straight P2)."""

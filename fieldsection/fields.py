@@ -12,7 +12,7 @@ import numpy as np
 from scipy.constants import epsilon_0
 from skfem import Basis
 
-from .mesh import linear_gradients
+from .mesh import linear_gradients, linear_gradients_and_areas
 from .solve import Solution
 
 # reference-triangle vertices, in the order of the mesh's element-to-vertex table
@@ -139,13 +139,9 @@ def _linear_outward_flux(solution: Solution, elements: np.ndarray, local_vertice
     E . n times the edge's length (times 2 pi r at its midpoint in a body of revolution: r is linear)."""
     mesh = solution.problem.section.mesh
     vertices = mesh.t[:, elements]  # (3, n)
-    u = solution.potential[vertices]
+    gradients, _ = linear_gradients_and_areas(mesh, elements)
+    E = -np.einsum("vn,vcn->cn", solution.potential[vertices], gradients)
     x, y = mesh.p[0][vertices], mesh.p[1][vertices]
-    d1 = np.array([x[1] - x[0], y[1] - y[0]])
-    d2 = np.array([x[2] - x[0], y[2] - y[0]])
-    det = d1[0] * d2[1] - d1[1] * d2[0]
-    # grad u from u1 - u0 = g . d1 and u2 - u0 = g . d2
-    E = -np.array([(u[1] - u[0]) * d2[1] - (u[2] - u[0]) * d1[1], (u[2] - u[0]) * d1[0] - (u[1] - u[0]) * d2[0]]) / det
     columns = np.arange(len(elements))
     a, b = local_vertices[:, 0], local_vertices[:, 1]
     ax, ay, bx, by = x[a, columns], y[a, columns], x[b, columns], y[b, columns]

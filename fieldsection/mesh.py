@@ -351,9 +351,10 @@ def largest_at_vertices(mesh: MeshTri1 | MeshTri2, elements: np.ndarray, values:
     return ids, largest[ids], source[ids]
 
 
-def _corner_sides(mesh: MeshTri1 | MeshTri2) -> tuple[np.ndarray, np.ndarray]:
-    """Per element, the corner triangle's sides p1 - p0 and p2 - p0, each (2, nelements)."""
-    x, y, t = mesh.p[0], mesh.p[1], mesh.t  # one coordinate row at a time: 2D fancy indexing is ~5x slower
+def _corner_sides(mesh: MeshTri1 | MeshTri2, elements: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Per element (all, or ``elements``), the corner triangle's sides p1 - p0 and p2 - p0, each (2, n)."""
+    t = mesh.t if elements is None else mesh.t[:, elements]
+    x, y = mesh.p[0], mesh.p[1]  # one coordinate row at a time: 2D fancy indexing is ~5x slower
     x0, y0 = x[t[0]], y[t[0]]
     return np.array([x[t[1]] - x0, y[t[1]] - y0]), np.array([x[t[2]] - x0, y[t[2]] - y0])
 
@@ -369,9 +370,10 @@ def linear_gradients(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
     return linear_gradients_and_areas(mesh)[0]
 
 
-def linear_gradients_and_areas(mesh: MeshTri1 | MeshTri2) -> tuple[np.ndarray, np.ndarray]:
-    """``linear_gradients`` and ``triangle_areas`` from one pass over the corner triangles."""
-    d1, d2 = _corner_sides(mesh)
+def linear_gradients_and_areas(mesh: MeshTri1 | MeshTri2, elements: np.ndarray | None = None
+                               ) -> tuple[np.ndarray, np.ndarray]:
+    """``linear_gradients`` and ``triangle_areas`` from one pass over the corner triangles (all, or ``elements``)."""
+    d1, d2 = _corner_sides(mesh, elements)
     det = d1[0] * d2[1] - d1[1] * d2[0]
     g1 = np.array([d2[1], -d2[0]]) / det
     g2 = np.array([-d1[1], d1[0]]) / det

@@ -134,7 +134,6 @@ class _AmgCg:
         hierarchy = pyamg.ruge_stuben_solver(self._matrix)
         self._preconditioner = hierarchy.aspreconditioner(cycle="V")
         self.detail = f"{len(hierarchy.levels)} levels, operator complexity {hierarchy.operator_complexity():.2f}"
-        self.iterations: list[int] = []
 
     def solve(self, rhs: np.ndarray) -> np.ndarray:
         out = np.zeros_like(rhs)
@@ -156,7 +155,6 @@ class _AmgCg:
                     f"AMG-preconditioned CG did not converge: relative residual {achieved:.1e} after {count[0]} "
                     f"iterations (wanted {CG_TOLERANCE:.0e}); use [solver] method = \"direct\" for this case"
                 )
-            self.iterations.append(count[0])
             out[self._order, column] = x
         return out
 
