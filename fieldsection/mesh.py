@@ -7,11 +7,11 @@ from functools import cached_property
 from typing import Mapping
 
 import numpy as np
-import scipy.sparse as sp
 from skfem import MeshTri1, MeshTri2
 
 from .errors import MeshError
 from .gmsh_adapter import RawMesh, mesh_disc
+from .splitting import edge_keys, find_edges, unique_edges
 
 #: region name of the mapped exterior of an open-space circle
 EXTERIOR = "open space"
@@ -62,11 +62,6 @@ class SectionMesh:
         return areas
 
 
-def _facet_keys(pairs: np.ndarray, n_vertices: int) -> np.ndarray:
-    first, second = pairs[:, 0].astype(np.int64), pairs[:, 1].astype(np.int64)
-    return np.minimum(first, second) * n_vertices + np.maximum(first, second)
-
-
 def _with_facets(mesh: MeshTri1 | MeshTri2, like: MeshTri1 | None = None) -> MeshTri1 | MeshTri2:
     """Give ``mesh`` its facet tables (``facets``, ``t2f``, ``f2t``) from a sparse pattern of its edges.
 
@@ -78,23 +73,14 @@ def _with_facets(mesh: MeshTri1 | MeshTri2, like: MeshTri1 | None = None) -> Mes
         mesh._facets, mesh._t2f, mesh._f2t = like.facets, like.t2f, like.f2t
         return mesh
     local = mesh.elem.refdom.facets
-    n = mesh.nvertices
     t = mesh.t
     ends = [np.concatenate([t[ix[k]] for ix in local]) for k in (0, 1)]
-    low, high = np.minimum(*ends).astype(np.int32), np.maximum(*ends).astype(np.int32)
-    # a CSR pattern of (low, high) holds each edge once, rows and columns sorted: the facets in lexicographic
-    # order, in linear time (a sort of the 3 m edge keys took twice as long at a million nodes)
-    pattern = sp.coo_matrix((np.ones(low.size, dtype=np.int8), (low, high)), shape=(n, n)).tocsr()
-    pattern.sum_duplicates()
-    pattern.data = np.arange(pattern.nnz, dtype=np.int64)  # each stored entry's facet index
-    inverse = np.asarray(pattern[low, high]).ravel()
-    rows = np.repeat(np.arange(n, dtype=np.int32), np.diff(pattern.indptr))
-    mesh._facets = np.ascontiguousarray(np.vstack([rows, pattern.indices.astype(np.int32)]))
+    mesh._facets, inverse = unique_edges(*ends, mesh.nvertices)
     mesh._t2f = inverse.reshape(len(local), -1).astype(np.int32)
     # f2t: first and last element listing each facet (in t2f's row-major order), -1 if only one
     element = np.tile(np.arange(mesh.nelements, dtype=np.int32), len(local))
-    first = np.full(pattern.nnz, -1, dtype=np.int32)
-    last = np.full(pattern.nnz, -1, dtype=np.int32)
+    first = np.full(mesh._facets.shape[1], -1, dtype=np.int32)
+    last = np.full(mesh._facets.shape[1], -1, dtype=np.int32)
     first[inverse[::-1]] = element[::-1]  # repeated indices: the last assignment wins
     last[inverse] = element
     last[last == first] = -1
@@ -105,19 +91,16 @@ def _with_facets(mesh: MeshTri1 | MeshTri2, like: MeshTri1 | None = None) -> Mes
 def _sorted_facet_keys(mesh: MeshTri1) -> np.ndarray:
     """One integer key per facet, in facet order and ascending (scikit-fem's facets are sorted vertex
     pairs in lexicographic order)."""
-    return mesh.facets[0].astype(np.int64) * mesh.nvertices + mesh.facets[1]
+    return edge_keys(mesh.facets.T, mesh.nvertices)
 
 
 def _match_facets(mesh: MeshTri1, pairs: np.ndarray, what: str, sorted_keys: np.ndarray | None = None) -> np.ndarray:
     """Facet index of each vertex pair; raise if any pair is not an edge of the mesh."""
-    n = mesh.nvertices
     if sorted_keys is None:
         sorted_keys = _sorted_facet_keys(mesh)
-    keys = _facet_keys(pairs, n)
-    pos = np.clip(np.searchsorted(sorted_keys, keys), 0, len(sorted_keys) - 1)
-    missing = sorted_keys[pos] != keys
-    if missing.any():
-        raise MeshError(f"{what}: {int(missing.sum())} segment(s) are not edges of the triangle mesh; "
+    pos, found = find_edges(sorted_keys, pairs, mesh.nvertices)
+    if not found.all():
+        raise MeshError(f"{what}: {int((~found).sum())} segment(s) are not edges of the triangle mesh; "
                         "every physical curve must lie on the boundary of a meshed surface")
     return pos
 
