@@ -85,15 +85,20 @@ def _case(h_mm: float, order: int, refinements: int = 0):
                 refinement=SINGLE_MESH)  # the million-node path: one mesh
 
 
-def bare_gmsh(h_mm: float, algorithm: int, refinements: int = 0) -> dict:
-    import gmsh
-
+def _open_model(gmsh, h_mm: float, refinements: int) -> None:
+    """The benchmark model in a fresh gmsh session, every size 2**refinements times larger."""
     gmsh.initialize(interruptible=False)
     gmsh.option.setNumber("General.Terminal", 0)
     gmsh.parser.setNumber("h", [h_mm])
     gmsh.merge(str(SCRIPT))
-    gmsh.option.setNumber("Mesh.Algorithm", algorithm)
     gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**refinements)
+
+
+def bare_gmsh(h_mm: float, algorithm: int, refinements: int = 0) -> dict:
+    import gmsh
+
+    _open_model(gmsh, h_mm, refinements)
+    gmsh.option.setNumber("Mesh.Algorithm", algorithm)
     start = time.perf_counter()
     gmsh.model.mesh.generate(2)
     for _ in range(refinements):
@@ -109,13 +114,10 @@ def gmsh_and_split(h_mm: float, refinements: int) -> dict:
     pipeline's own way of meshing, without the rest of its mesh stage (child process, checks, groups)."""
     import gmsh
 
+    from fieldsection.gmsh_adapter import curve_projection
     from fieldsection.splitting import split_into_four
 
-    gmsh.initialize(interruptible=False)
-    gmsh.option.setNumber("General.Terminal", 0)
-    gmsh.parser.setNumber("h", [h_mm])
-    gmsh.merge(str(SCRIPT))
-    gmsh.option.setNumber("Mesh.MeshSizeFactor", 2.0**refinements)
+    _open_model(gmsh, h_mm, refinements)
     start = time.perf_counter()
     gmsh.model.mesh.generate(2)
     tags, coords, _ = gmsh.model.mesh.getNodes()
@@ -125,12 +127,7 @@ def gmsh_and_split(h_mm: float, refinements: int) -> dict:
     triangles = index[gmsh.model.mesh.getElementsByType(2)[1].astype(np.int64)].reshape(-1, 3)
     segments = {tag: index[gmsh.model.mesh.getElementsByType(1, tag)[1].astype(np.int64)].reshape(-1, 2)
                 for _, tag in gmsh.model.getEntities(1)}
-
-    def snap(tag, midpoints, chords):
-        if gmsh.model.getType(1, tag) == "Line":
-            return midpoints
-        return gmsh.model.getClosestPoint(1, tag, midpoints.ravel())[0].reshape(-1, 3)
-
+    snap = curve_projection(gmsh)
     for _ in range(refinements):
         points, triangles, segments = split_into_four(points, triangles, segments, snap)
     seconds = time.perf_counter() - start

@@ -23,7 +23,7 @@ import numpy as np
 from .case import MAX_REFINEMENTS, BuilderGeometry, MeshSettings, ScriptGeometry
 from .errors import GeometryError, MeshError
 from .geometry import screen_script
-from .splitting import split_into_four, with_mid_edge_nodes
+from .splitting import Snap, split_into_four, with_mid_edge_nodes
 
 #: seconds one meshing may take before it is stopped (a mistyped size can ask for billions of elements)
 MESHING_TIME_LIMIT = 3600.0
@@ -349,6 +349,20 @@ def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, cur
         gmsh.model.mesh.field.setAsBackgroundMesh(combined)
 
 
+def curve_projection(gmsh) -> Snap:
+    """Moves edge midpoints onto the curves of gmsh's current model (the ``Snap`` of ``splitting``)."""
+
+    def snap(entity: int, midpoints: np.ndarray, chords: np.ndarray) -> np.ndarray:
+        if gmsh.model.getType(1, entity) == "Line":  # the chord's midpoint is exact; gmsh's projection is iterative
+            return midpoints
+        projected = gmsh.model.getClosestPoint(1, entity, midpoints.ravel())[0].reshape(-1, 3)
+        # on a tight bend the nearest point can lie on another stretch of the curve: keep the chord's midpoint
+        jumped = np.hypot(*(projected - midpoints)[:, :2].T) > 0.5 * chords
+        return np.where(jumped[:, None], midpoints, projected)
+
+    return snap
+
+
 def _automatic_splits(gmsh) -> tuple[int, list[str], bool]:
     """Choose k for a mesh whose refinements are left to the tool; leaves gmsh's mesh in place if it is the
     coarse mesh for that k, else none. Returns k, gmsh's messages from before the probes (the logger then
@@ -477,17 +491,7 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
                     for etype, enodes in zip(*gmsh.model.mesh.getElements(1, entity)[::2]) if etype == _LINE2]
         entity_segments[entity] = np.concatenate(segments) if segments else np.zeros((0, 2), dtype=np.int64)
 
-    def snap(entity: int, points: np.ndarray) -> np.ndarray:
-        if gmsh.model.getType(1, entity) == "Line":  # the chord's midpoint is exact; gmsh's projection is iterative
-            return points
-        return gmsh.model.getClosestPoint(1, entity, points.ravel())[0].reshape(-1, 3)
-
-    def snap_segments(entity: int, midpoints: np.ndarray, chords: np.ndarray) -> np.ndarray:
-        projected = snap(entity, midpoints)
-        # on a tight bend the nearest point can lie on another stretch of the curve: keep the chord's midpoint
-        jumped = np.hypot(*(projected - midpoints)[:, :2].T) > 0.5 * chords
-        return np.where(jumped[:, None], midpoints, projected)
-
+    snap_segments = curve_projection(gmsh)
     # splitting in numpy (with gmsh's projection onto the curves) is much cheaper than gmsh's refine
     for _ in range(splits):
         coords, triangles, entity_segments = split_into_four(coords, triangles, entity_segments, snap_segments)
