@@ -80,6 +80,13 @@ class RegionVertexField:
     def tree(self) -> cKDTree:
         return cKDTree(self.points)
 
+    def with_values(self, values: np.ndarray) -> RegionVertexField:
+        """Another field on the same vertices (sharing their points, sizes and search tree)."""
+        other = RegionVertexField(self.points, values, self.sizes)
+        if "tree" in self.__dict__:  # built already: cached_property keeps it in the instance's dict
+            other.__dict__["tree"] = self.__dict__["tree"]
+        return other
+
     def peak_near(self, point: np.ndarray, radius: float) -> tuple[float, float] | None:
         """(largest |E|, local size there) within ``radius`` of ``point``; None if no vertex is that close."""
         near = self.tree.query_ball_point(point, radius)
@@ -89,15 +96,24 @@ class RegionVertexField:
         return float(self.values[best]), float(self.sizes[best])
 
 
-def region_vertex_fields(section: SectionMesh, magnitude: np.ndarray, regions: list[str]) -> dict[str, RegionVertexField]:
-    """For each named region: every vertex it touches, with the largest |E| there from its elements."""
+def region_vertex_fields(section: SectionMesh, magnitude: np.ndarray, regions: list[str],
+                         like: dict[str, RegionVertexField] | None = None) -> dict[str, RegionVertexField]:
+    """For each named region: every vertex it touches, with the largest |E| there from its elements.
+
+    ``like``: fields of the same regions on the same mesh, whose points, sizes and search trees are shared
+    (at a million nodes, building them again cost about as much as the values)."""
     mesh = section.mesh
-    sizes = vertex_sizes(section)
+    sizes = vertex_sizes(section) if like is None else None
     out = {}
     for name in regions:  # a handful of regions; each step below is vectorised
         elements = section.elements_of(name)
         ids, values, _ = largest_at_vertices(mesh, elements, magnitude[elements])
-        out[name] = RegionVertexField(mesh.p[:, ids].T.copy(), values, sizes[ids])
+        if like is not None:
+            if len(like[name].values) != len(ids):
+                raise ValueError(f"region {name!r}: the fields to share are of another mesh")
+            out[name] = like[name].with_values(values)
+        else:
+            out[name] = RegionVertexField(mesh.p[:, ids].T.copy(), values, sizes[ids])
     return out
 
 

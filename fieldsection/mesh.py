@@ -357,10 +357,20 @@ def linear_gradients_and_areas(mesh: MeshTri1 | MeshTri2, elements: np.ndarray |
                                ) -> tuple[np.ndarray, np.ndarray]:
     """``linear_gradients`` and ``triangle_areas`` from one pass over the corner triangles (all, or ``elements``)."""
     d1, d2 = _corner_sides(mesh, elements)
-    det = d1[0] * d2[1] - d1[1] * d2[0]
-    g1 = np.array([d2[1], -d2[0]]) / det
-    g2 = np.array([-d1[1], d1[0]]) / det
-    return np.array([-g1 - g2, g1, g2]), 0.5 * np.abs(det)
+    det = d1[0] * d2[1]
+    det -= d1[1] * d2[0]
+    inverse = 1.0 / det
+    # written into one array in place: stacking the parts took about twice as long at a million elements
+    gradients = np.empty((3, 2, det.size))
+    np.multiply(d2[1], inverse, out=gradients[1, 0])
+    np.multiply(d2[0], -inverse, out=gradients[1, 1])
+    np.multiply(d1[1], -inverse, out=gradients[2, 0])
+    np.multiply(d1[0], inverse, out=gradients[2, 1])
+    np.add(gradients[1], gradients[2], out=gradients[0])
+    np.negative(gradients[0], out=gradients[0])
+    np.abs(det, out=det)
+    det *= 0.5
+    return gradients, det
 
 
 def _check_quality(mesh: MeshTri1 | MeshTri2) -> None:

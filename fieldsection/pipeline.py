@@ -174,7 +174,7 @@ def _one_pass(case: Case, size_field: SizeField | None, stage) -> _Pass:
         return _Pass(section, problem, None, None, None, None, None, None, None)  # over budget: not solved
     solution = stage("solve", lambda: solve(problem, case.solver))
     fields = stage("fields", lambda: element_fields(solution))
-    recovery = stage("recovery", lambda: recover_field(solution, case.refinement.adaptive))
+    recovery = stage("recovery", lambda: recover_field(solution, case.refinement.adaptive, fields))
     charges = stage("charges", lambda: compute_charges(solution, fields))
     capacitance = stage("capacitance", lambda: compute_capacitance(solution, fields, charges))
     magnitude = recovery.peak_search_field(fields.E_magnitude, problem.element_order)
@@ -222,8 +222,7 @@ def _certificate(case: Case, passes: list[_Pass], tree: cKDTree, region: str, po
     last = passes[-1]
     section = last.section
     # the geometry corner a peak belongs to may be a vertex or two away from the largest value
-    near = tree.query_ball_point(point, 2.5 * sizes[-1])
-    near = np.asarray(near, dtype=np.int64)[np.isin(near, section.corner_vertices)] if len(near) else []
+    near = section.corner_vertices[np.sort(np.asarray(tree.query_ball_point(point, 2.5 * sizes[-1]), dtype=np.int64))]
     theories = [(t, v) for t, v in ((corner_theory(last.problem, int(v)), v) for v in near) if t is not None]
     theory, corner = min(theories, key=lambda item: item[0].exponent, default=(None, None))
     strength = last.problem.material_of_region[region].dielectric_strength
@@ -268,10 +267,12 @@ def _track(passes: list[_Pass], region: str, point: np.ndarray) -> tuple[list[fl
 
 def _certify_all(case: Case, passes: list[_Pass], hotspots: HotspotResult) -> Certificates:
     last = passes[-1]
-    tree = cKDTree(last.section.mesh.p.T)
+    section = last.section
+    tree = cKDTree(section.mesh.p[:, section.corner_vertices].T)  # the geometry corners only: a few dozen
     own_fields = None
     if len(passes) == 1:  # the element's own field beside the recovered one, for the single-mesh estimate
-        own_fields = region_vertex_fields(last.section, last.fields.E_magnitude, list(last.problem.material_of_region))
+        own_fields = region_vertex_fields(section, last.fields.E_magnitude, list(last.problem.material_of_region),
+                                          like=last.record.vertex_fields)
     regions = _certify_regions(case, passes, tree, own_fields)
     spots = []
     for spot in hotspots.hotspots:

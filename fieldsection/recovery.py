@@ -17,6 +17,7 @@ of the solution, so (eta / ||u||_E)^2 estimates the relative error of the capaci
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import scipy.sparse as sp
@@ -25,7 +26,7 @@ from scipy.constants import epsilon_0
 from skfem import Basis, BilinearForm, ElementDG
 
 from .errors import SolverError
-from .fields import gradient_at_points
+from .fields import ElementFields, gradient_at_points
 from .mesh import linear_gradients_and_areas
 from .problem import weighted_permittivity
 from .solve import Solution
@@ -156,7 +157,7 @@ class _LinearProjector:
         self.problem = problem
         section = problem.section
         mesh = section.mesh
-        self.gradients, self.area = linear_gradients_and_areas(mesh)
+        self.area = section.element_areas
         keys = mesh.t.astype(np.int64) * len(section.region_names) + section.region_of_element[None, :]
         # one node per (vertex, region) pair in use, numbered in key order: np.unique's inverse, without a sort
         used = np.zeros(mesh.nvertices * len(section.region_names), dtype=bool)
@@ -167,6 +168,12 @@ class _LinearProjector:
         if problem.axisymmetric:
             eps = eps * 2 * np.pi * mesh.p[0, mesh.t].mean(axis=0)
         self.eps_area = eps * self.area
+
+    @cached_property
+    def gradients(self) -> np.ndarray:
+        """(3, 2, nelements); only the unit solutions of a refinement indicator need them (~100 MB at a
+        million elements, computed when first asked for)."""
+        return linear_gradients_and_areas(self.problem.section.mesh)[0]
 
     def field(self, potential: np.ndarray) -> np.ndarray:
         u = potential[self.problem.section.mesh.t]  # (3, nelements)
@@ -182,23 +189,35 @@ class _LinearProjector:
         return np.moveaxis(coefficients[:, self.glued], 0, -1).transpose(1, 0, 2)
 
     def indicator(self, coefficients: np.ndarray, E_h: np.ndarray) -> np.ndarray:
-        d = coefficients[:, self.glued] - E_h[:, None, :]  # (2, 3, nelements): linear in each element
-        # integral of a linear f over a triangle of area A: A/12 (sum f_i^2 + (sum f_i)^2)
-        eta2 = self.eps_area / 12 * ((d**2).sum(axis=(0, 1)) + (d.sum(axis=1) ** 2).sum(axis=0))
+        # integral of a linear f over a triangle of area A: A/12 (sum f_i^2 + (sum f_i)^2), summed over the
+        # two components of E* - E_h; one component at a time, in place (~2x faster at a million elements)
+        total = np.zeros(E_h.shape[1])
+        for coefficient, element_value in zip(coefficients, E_h):
+            d = coefficient[self.glued]  # (3, nelements)
+            d -= element_value
+            total += d[0] * d[0] + d[1] * d[1] + d[2] * d[2]
+            along = d.sum(axis=0)
+            total += along * along
+        eta2 = total
+        eta2 *= self.eps_area / 12
         eta2[~self.problem.dielectric | self.problem.section.exterior] = 0.0
         return eta2
 
 
-def recover_field(solution: Solution, for_refinement: bool = True) -> Recovery:
+def recover_field(solution: Solution, for_refinement: bool = True, fields: ElementFields | None = None) -> Recovery:
     """E* and the indicator for the case's potential. With ``for_refinement`` the refinement indicator
     sums every unit solution's (each over its own energy), so the next mesh serves each entry of the
-    capacitance matrix; the case's recovered field is then their combination (the projection is linear)."""
+    capacitance matrix; the case's recovered field is then their combination (the projection is linear).
+
+    ``fields``: the case's element fields, when computed already; for linear elements on straight
+    triangles their E is used rather than taken again from the potential."""
     problem = solution.problem
     project = _LinearProjector(solution) if problem.element_order == 1 else _Projector(solution)
     u = solution.potential
     norm = float(u @ (problem.stiffness @ u))
     if not for_refinement:
-        E_h = project.field(u)
+        constant = fields is not None and isinstance(project, _LinearProjector) and fields.E.strides[1] == 0
+        E_h = fields.E[:, 0, :].T if constant else project.field(u)
         coefficients = project.project(E_h)
         indicator = project.indicator(coefficients, E_h)
         return Recovery(project.vertex_values(coefficients), indicator, norm, indicator / norm if norm > 0 else indicator)

@@ -49,6 +49,23 @@ def test_linear_shortcuts_equal_the_general_quadrature_paths(monkeypatch):
         assert mine.bound_charge == pytest.approx(theirs.bound_charge, rel=1e-9, abs=1e-12 * abs(theirs.bound_charge))
 
 
+def test_recovery_from_the_element_fields_equals_recovery_from_the_potential():
+    """The single-mesh recovery takes E from the element fields instead of the potential's gradients; the
+    recovered field and the error indicator must not change (round-off only)."""
+    from conftest import solve_script
+    from fieldsection import Material
+    from fieldsection.recovery import recover_field
+
+    result = solve_script("coaxial_two_layer.geo", {"inner_layer": Material("a", 2.0, 20e6),
+                                                    "outer_layer": Material("b", 5.0, 20e6)},
+                          {"inner": 1000.0, "outer": 0.0}, order=1, curved=False)
+    given = recover_field(result.solution, False, result.fields)
+    own = recover_field(result.solution, False)
+    np.testing.assert_allclose(given.E, own.E, rtol=1e-12, atol=1e-12 * abs(own.E).max())
+    np.testing.assert_allclose(given.indicator, own.indicator, rtol=1e-9, atol=1e-12 * own.indicator.max())
+    assert own.indicator.max() > 0
+
+
 def test_curved_linear_elements_keep_the_general_path():
     """P1 on curved (6-node) geometry is not straight: E must come from the curved map, not the corner
     triangle. Coaxial line, E(a) = V / (a ln(b/a)) by Gauss's law (e.g. D. M. Pozar, Microwave
