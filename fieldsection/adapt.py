@@ -83,8 +83,7 @@ class RegionVertexField:
     def with_values(self, values: np.ndarray) -> RegionVertexField:
         """Another field on the same vertices (sharing their points, sizes and search tree)."""
         other = RegionVertexField(self.points, values, self.sizes)
-        if "tree" in self.__dict__:  # built already: cached_property keeps it in the instance's dict
-            other.__dict__["tree"] = self.__dict__["tree"]
+        other.__dict__["tree"] = self.tree  # where cached_property keeps it: built once for both
         return other
 
     def peak_near(self, point: np.ndarray, radius: float) -> tuple[float, float] | None:

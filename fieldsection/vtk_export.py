@@ -38,7 +38,9 @@ def _centroid_xyz(vertex_values: np.ndarray) -> np.ndarray:
     """(nelements, 3, 2) vertex values -> (nelements, 3) centroid values with z = 0."""
     # constant in each element (linear elements, stored as a broadcast view): no mean to take
     mean = vertex_values[:, 0] if vertex_values.strides[1] == 0 else vertex_values.mean(axis=1)
-    return np.column_stack([mean, np.zeros(len(mean))])
+    out = np.zeros((len(mean), 3))  # C order, as written (column_stack of these views gave Fortran order: a copy)
+    out[:, :2] = mean
+    return out
 
 
 def section_to_meshio(problem: AssembledProblem, solution: Solution, fields: ElementFields,
