@@ -7,6 +7,7 @@ vertex values give its maximum and, along any edge, its exact linear variation.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 from scipy.constants import epsilon_0
@@ -35,12 +36,14 @@ class ElementFields:
     P: np.ndarray  # C/m^2, P = D - eps0 E
     energy_per_length: float  # J/m, (1/2) u^T K u over the whole section
 
-    @property
+    @cached_property
     def E_magnitude(self) -> np.ndarray:
-        """|E| at each vertex of each element, shape (nelements, 3)."""
+        """|E| at each vertex of each element, shape (nelements, 3); computed once, read-only."""
         if self.E.strides[1] == 0:  # constant in each element (linear elements): once per element
             return np.broadcast_to(np.hypot(self.E[:, 0, 0], self.E[:, 0, 1])[:, None], self.E.shape[:2])
-        return np.hypot(self.E[..., 0], self.E[..., 1])
+        magnitude = np.hypot(self.E[..., 0], self.E[..., 1])
+        magnitude.flags.writeable = False
+        return magnitude
 
     @property
     def element_peak_E(self) -> np.ndarray:

@@ -309,12 +309,14 @@ def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> S
         doflocs[:, base.nvertices + facets] = raw.points[mid_nodes].T
         mesh = _with_facets(MeshTri2(np.ascontiguousarray(doflocs), base.t), like=base)
 
-    _check_quality(mesh)
+    areas = _check_quality(mesh)
     drawn = region_of_element != (names.index(EXTERIOR) if EXTERIOR in names else -1)
     _check_conforming(base, names, region_of_element, drawn)
     geometry_corners = remap[raw.corner_nodes]
-    return SectionMesh(mesh, names, region_of_element, curve_facets, raw.warnings, open_circle,
-                       np.unique(geometry_corners[geometry_corners >= 0]), raw.splits)
+    section = SectionMesh(mesh, names, region_of_element, curve_facets, raw.warnings, open_circle,
+                          np.unique(geometry_corners[geometry_corners >= 0]), raw.splits)
+    section.__dict__["element_areas"] = areas  # (what the cached property would compute again)
+    return section
 
 
 def largest_at_vertices(mesh: MeshTri1 | MeshTri2, elements: np.ndarray, values: np.ndarray
@@ -373,12 +375,15 @@ def linear_gradients_and_areas(mesh: MeshTri1 | MeshTri2, elements: np.ndarray |
     return gradients, det
 
 
-def _check_quality(mesh: MeshTri1 | MeshTri2) -> None:
-    """Reject degenerate or inverted elements (scikit-fem validates only at DEBUG level)."""
+def _check_quality(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
+    """Reject degenerate or inverted elements (scikit-fem validates only at DEBUG level); return the
+    corner triangles' areas (``triangle_areas``, read-only)."""
     p, t = mesh.p, mesh.t
     d1, d2 = _corner_sides(mesh)
     longest = np.max([np.hypot(*d1), np.hypot(*d2), np.hypot(*(d2 - d1))], axis=0)
-    bad = np.flatnonzero(0.5 * np.abs(d1[0] * d2[1] - d1[1] * d2[0]) <= 1e-12 * longest**2)
+    areas = 0.5 * np.abs(d1[0] * d2[1] - d1[1] * d2[0])
+    areas.flags.writeable = False
+    bad = np.flatnonzero(areas <= 1e-12 * longest**2)
     if bad.size:
         x, y = p[:, t[:, bad[0]]].mean(axis=1)
         raise MeshError(f"{bad.size} degenerate triangle(s), first near ({x * 1e3:.4g}, {y * 1e3:.4g}) mm; check "
@@ -392,6 +397,7 @@ def _check_quality(mesh: MeshTri1 | MeshTri2) -> None:
             x, y = p[:, t[:, folded[0]]].mean(axis=1)
             raise MeshError(f"{folded.size} curved element(s) fold over, first near ({x * 1e3:.4g}, {y * 1e3:.4g}) "
                             "mm (a mid-edge node too far off its chord); refine the mesh near that arc")
+    return areas
 
 
 def _check_conforming(mesh: MeshTri1, names: tuple[str, ...], region_of_element: np.ndarray,
