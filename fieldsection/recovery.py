@@ -215,6 +215,8 @@ def recover_field(solution: Solution, for_refinement: bool = True, fields: Eleme
     project = _LinearProjector(solution) if problem.element_order == 1 else _Projector(solution)
     u = solution.potential
     norm = float(u @ (problem.stiffness @ u))
+    if fields is not None and fields.E.shape[0] != problem.section.mesh.nelements:
+        raise ValueError("the element fields are of another mesh; pass those of this solution")
     if not for_refinement:
         constant = fields is not None and isinstance(project, _LinearProjector) and fields.E.strides[1] == 0
         E_h = fields.E[:, 0, :].T if constant else project.field(u)
