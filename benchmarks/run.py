@@ -127,7 +127,7 @@ def gmsh_and_split(h_mm: float, refinements: int) -> dict:
     pipeline's own way of meshing, without the rest of its mesh stage (child process, checks, groups)."""
     import gmsh
 
-    from fieldsection.gmsh_adapter import curve_projection
+    from fieldsection.gmsh_adapter import curve_projection, curve_segments
     from fieldsection.splitting import split_into_four
 
     _open_model(gmsh, h_mm, refinements)
@@ -138,8 +138,7 @@ def gmsh_and_split(h_mm: float, refinements: int) -> dict:
     index[tags.astype(np.int64)] = np.arange(tags.size)
     points = coords.reshape(-1, 3)
     triangles = index[gmsh.model.mesh.getElementsByType(2)[1].astype(np.int64)].reshape(-1, 3)
-    segments = {tag: index[gmsh.model.mesh.getElementsByType(1, tag)[1].astype(np.int64)].reshape(-1, 2)
-                for _, tag in gmsh.model.getEntities(1)}
+    segments = curve_segments(gmsh, index)
     snap = curve_projection(gmsh)
     for _ in range(refinements):
         points, triangles, segments = split_into_four(points, triangles, segments, snap)

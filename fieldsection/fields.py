@@ -13,7 +13,7 @@ import numpy as np
 from scipy.constants import epsilon_0
 from skfem import Basis
 
-from .mesh import linear_gradients, linear_gradients_and_areas
+from .mesh import linear_gradients_and_areas
 from .solve import Solution
 
 # reference-triangle vertices, in the order of the mesh's element-to-vertex table
@@ -36,10 +36,15 @@ class ElementFields:
     P: np.ndarray  # C/m^2, P = D - eps0 E
     energy_per_length: float  # J/m, (1/2) u^T K u over the whole section
 
+    @property
+    def constant_in_elements(self) -> bool:
+        """One value per element (linear elements on straight triangles): the arrays repeat it at the vertices."""
+        return self.E.strides[1] == 0
+
     @cached_property
     def E_magnitude(self) -> np.ndarray:
         """|E| at each vertex of each element, shape (nelements, 3); computed once, read-only."""
-        if self.E.strides[1] == 0:  # constant in each element (linear elements): once per element
+        if self.constant_in_elements:  # once per element
             return np.broadcast_to(np.hypot(self.E[:, 0, 0], self.E[:, 0, 1])[:, None], self.E.shape[:2])
         magnitude = np.hypot(self.E[..., 0], self.E[..., 1])
         magnitude.flags.writeable = False
@@ -62,10 +67,15 @@ def gradient_at_vertices(solution: Solution, dof_vector: np.ndarray) -> np.ndarr
     problem = solution.problem
     mesh = problem.section.mesh
     if _is_linear(problem):
-        gradient = np.einsum("vn,vcn->nc", dof_vector[mesh.t], linear_gradients(mesh))[:, None, :]
-        return np.broadcast_to(gradient, (mesh.nelements, 3, 2))
+        return np.broadcast_to(_linear_gradient(mesh, dof_vector)[:, None, :], (mesh.nelements, 3, 2))
     basis = Basis(mesh, problem.basis.elem, quadrature=(_VERTICES, np.full(3, 1 / 6)))
     return np.moveaxis(gradient_at_points(basis, dof_vector), 0, -1)
+
+
+def _linear_gradient(mesh, u: np.ndarray, elements: np.ndarray | None = None) -> np.ndarray:
+    """grad(u) in each linear element on a straight triangle (all, or ``elements``): constant, shape (n, 2)."""
+    vertices = mesh.t if elements is None else mesh.t[:, elements]
+    return np.einsum("vn,vcn->nc", u[vertices], linear_gradients_and_areas(mesh, elements)[0])
 
 
 def _is_linear(problem) -> bool:
@@ -142,14 +152,13 @@ def _linear_outward_flux(solution: Solution, elements: np.ndarray, local_vertice
     E . n times the edge's length (times 2 pi r at its midpoint in a body of revolution: r is linear)."""
     mesh = solution.problem.section.mesh
     vertices = mesh.t[:, elements]  # (3, n)
-    gradients, _ = linear_gradients_and_areas(mesh, elements)
-    E = -np.einsum("vn,vcn->cn", solution.potential[vertices], gradients)
+    E = -_linear_gradient(mesh, solution.potential, elements)  # (n, 2)
     x, y = mesh.p[0][vertices], mesh.p[1][vertices]
     columns = np.arange(len(elements))
     a, b = local_vertices[:, 0], local_vertices[:, 1]
     ax, ay, bx, by = x[a, columns], y[a, columns], x[b, columns], y[b, columns]
     length = np.hypot(bx - ax, by - ay)
-    flux = coefficient * np.einsum("in,ni->n", E, chord_normals) * length
+    flux = coefficient * np.einsum("ni,ni->n", E, chord_normals) * length
     if solution.problem.axisymmetric:
         flux = flux * 2 * np.pi * 0.5 * (ax + bx)
     return flux

@@ -96,6 +96,23 @@ def _quiet(gmsh) -> None:
     gmsh.logger.start()
 
 
+def _forget_messages(gmsh) -> None:
+    """Empty gmsh's message log (stopping the logger clears it), and keep logging."""
+    gmsh.logger.stop()
+    gmsh.logger.start()
+
+
+def _generate_afresh(gmsh) -> None:
+    """Mesh the surfaces from nothing: generate() would keep an existing mesh (a script's own "Mesh 2;", an
+    earlier probe's curves)."""
+    gmsh.model.mesh.clear()
+    gmsh.model.mesh.generate(2)
+
+
+def _meshing_failed(exc: Exception) -> MeshError:
+    return MeshError(f"gmsh could not mesh the geometry: {exc}; check for overlapping or open curves")
+
+
 def _gmsh_messages(gmsh, level: str, earlier: list[str] | tuple[str, ...] = ()) -> list[str]:
     return [m.split(":", 1)[1].strip() for m in [*earlier, *gmsh.logger.get()] if m.startswith(level + ":")]
 
@@ -349,6 +366,17 @@ def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, cur
         gmsh.model.mesh.field.setAsBackgroundMesh(combined)
 
 
+def curve_segments(gmsh, index_of: np.ndarray) -> dict[int, np.ndarray]:
+    """The line segments (s, 2) of every curve entity of gmsh's current mesh, as node indices through
+    ``index_of`` (gmsh node tag -> index)."""
+    out = {}
+    for _, entity in gmsh.model.getEntities(1):
+        segments = [index_of[enodes.astype(np.int64)].reshape(-1, 2)
+                    for etype, enodes in zip(*gmsh.model.mesh.getElements(1, entity)[::2]) if etype == _LINE2]
+        out[entity] = np.concatenate(segments) if segments else np.zeros((0, 2), dtype=np.int64)
+    return out
+
+
 def curve_projection(gmsh) -> Snap:
     """Moves edge midpoints onto the curves of gmsh's current model (the ``Snap`` of ``splitting``)."""
 
@@ -378,12 +406,10 @@ def _automatic_splits(gmsh) -> tuple[int, list[str], bool]:
     own_factor = gmsh.option.getNumber("Mesh.MeshSizeFactor")  # a script's own factor scales everything
     counts = {}
     for probe_splits in (_PROBE_SPLITS + 1, _PROBE_SPLITS):
-        gmsh.logger.stop()  # each probe's messages apart: only the kept probe's may stay
-        gmsh.logger.start()
+        _forget_messages(gmsh)  # each probe's messages apart: only the kept probe's may stay
         gmsh.option.setNumber("Mesh.MeshSizeFactor", own_factor * 2.0**probe_splits)
         try:
-            gmsh.model.mesh.clear()  # generate() keeps an existing mesh of the curves
-            gmsh.model.mesh.generate(2)
+            _generate_afresh(gmsh)
             failed = bool(_gmsh_messages(gmsh, "Error"))
             counts[probe_splits] = 0 if failed else gmsh.model.mesh.getNodes()[0].size
         except Exception:
@@ -402,8 +428,7 @@ def _automatic_splits(gmsh) -> tuple[int, list[str], bool]:
         return splits, earlier, True  # the last probe is the coarse mesh: it and its messages stay
     gmsh.model.mesh.clear()
     gmsh.option.setNumber("Mesh.MeshSizeFactor", own_factor * 2.0**splits)
-    gmsh.logger.stop()  # the probes' messages (an error, if one failed) are not the model's
-    gmsh.logger.start()
+    _forget_messages(gmsh)  # the probes' messages (an error, if one failed) are not the model's
     return splits, earlier, False
 
 
@@ -431,22 +456,19 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
         gmsh.option.setNumber("Mesh.MeshSizeFactor", gmsh.option.getNumber("Mesh.MeshSizeFactor") * 2.0**splits)
     if not meshed:
         try:
-            gmsh.model.mesh.clear()  # a script's own "Mesh 2;" would otherwise be kept as it is
-            gmsh.model.mesh.generate(2)
+            _generate_afresh(gmsh)
         except Exception as exc:
             if settings.refinements is not None or splits == 0:
-                raise MeshError(f"gmsh could not mesh the geometry: {exc}; check for overlapping or open curves") from None
+                raise _meshing_failed(exc) from None
     if settings.refinements is None and splits and (_gmsh_messages(gmsh, "Error") or not gmsh.model.mesh.getNodes()[0].size):
         # the tool's own choice to mesh coarser failed: mesh at the final size instead
-        gmsh.model.mesh.clear()
         gmsh.option.setNumber("Mesh.MeshSizeFactor", gmsh.option.getNumber("Mesh.MeshSizeFactor") / 2.0**splits)
-        gmsh.logger.stop()
-        gmsh.logger.start()
+        _forget_messages(gmsh)
         splits = 0
         try:
-            gmsh.model.mesh.generate(2)
+            _generate_afresh(gmsh)
         except Exception as exc:
-            raise MeshError(f"gmsh could not mesh the geometry: {exc}; check for overlapping or open curves") from None
+            raise _meshing_failed(exc) from None
     errors = _gmsh_messages(gmsh, "Error", earlier)
     if errors:
         raise MeshError(f"gmsh reported a meshing error: {errors[0]}; check the geometry")
@@ -485,11 +507,7 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
     triangles = np.concatenate(tri_blocks) if tri_blocks else np.zeros((0, 3), dtype=np.int64)
     if len(triangles) == 0:
         raise MeshError("gmsh produced no triangles; check the mesh sizes and the surfaces")
-    entity_segments: dict[int, np.ndarray] = {}
-    for _, entity in gmsh.model.getEntities(1):
-        segments = [index_of[enodes.astype(np.int64)].reshape(-1, 2)
-                    for etype, enodes in zip(*gmsh.model.mesh.getElements(1, entity)[::2]) if etype == _LINE2]
-        entity_segments[entity] = np.concatenate(segments) if segments else np.zeros((0, 2), dtype=np.int64)
+    entity_segments = curve_segments(gmsh, index_of)
 
     snap_segments = curve_projection(gmsh)
     # splitting in numpy (with gmsh's projection onto the curves) is much cheaper than gmsh's refine

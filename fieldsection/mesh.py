@@ -344,20 +344,19 @@ def _corner_sides(mesh: MeshTri1 | MeshTri2, elements: np.ndarray | None = None)
     return np.array([x[t[1]] - x0, y[t[1]] - y0]), np.array([x[t[2]] - x0, y[t[2]] - y0])
 
 
-def triangle_areas(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
-    """Area of each element's straight-sided (corner) triangle, m^2."""
-    d1, d2 = _corner_sides(mesh)
+def _area_of_sides(d1: np.ndarray, d2: np.ndarray) -> np.ndarray:
     return 0.5 * np.abs(d1[0] * d2[1] - d1[1] * d2[0])
 
 
-def linear_gradients(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
-    """Gradients of the three barycentric coordinates of each corner triangle, (3 vertices, 2, nelements), 1/m."""
-    return linear_gradients_and_areas(mesh)[0]
+def triangle_areas(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
+    """Area of each element's straight-sided (corner) triangle, m^2."""
+    return _area_of_sides(*_corner_sides(mesh))
 
 
 def linear_gradients_and_areas(mesh: MeshTri1 | MeshTri2, elements: np.ndarray | None = None
                                ) -> tuple[np.ndarray, np.ndarray]:
-    """``linear_gradients`` and ``triangle_areas`` from one pass over the corner triangles (all, or ``elements``)."""
+    """Gradients of the three barycentric coordinates of each corner triangle, (3 vertices, 2, n), 1/m, and the
+    triangles' areas (``triangle_areas``), from one pass over the corner triangles (all, or ``elements``)."""
     d1, d2 = _corner_sides(mesh, elements)
     det = d1[0] * d2[1]
     det -= d1[1] * d2[0]
@@ -381,7 +380,7 @@ def _check_quality(mesh: MeshTri1 | MeshTri2) -> np.ndarray:
     p, t = mesh.p, mesh.t
     d1, d2 = _corner_sides(mesh)
     longest = np.max([np.hypot(*d1), np.hypot(*d2), np.hypot(*(d2 - d1))], axis=0)
-    areas = 0.5 * np.abs(d1[0] * d2[1] - d1[1] * d2[0])
+    areas = _area_of_sides(d1, d2)
     areas.flags.writeable = False
     bad = np.flatnonzero(areas <= 1e-12 * longest**2)
     if bad.size:

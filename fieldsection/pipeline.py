@@ -47,7 +47,7 @@ class Certificates:
 
 @dataclass(frozen=True)
 class _Computed:
-    """What one pass computes on its mesh, from the mesh to the capacitance."""
+    """What one pass computes on its mesh, from the mesh to the capacitance and the recovered field."""
 
     section: SectionMesh
     problem: AssembledProblem
@@ -55,6 +55,10 @@ class _Computed:
     fields: ElementFields
     charges: ChargeResult
     capacitance: CapacitanceResult
+    recovery: Recovery
+    #: |E| at element vertices (nelements, 3), V/m: the field the peaks and hotspots are searched on
+    #: (``Recovery.peak_search_field``)
+    peak_search_field: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -65,26 +69,16 @@ class SectionResult(_Computed):
     hotspots: HotspotResult
     gas_gaps: tuple[GasGapScreening, ...] = ()
     stage_seconds: dict[str, float] = field(default_factory=dict)
-    recovery: Recovery | None = None
     passes: tuple[PassRecord, ...] = ()
     certificates: Certificates | None = None
     stop_reason: str = ""
     corona: tuple[CoronaCheck, ...] = ()
-
-    @property
-    def peak_search_field(self) -> np.ndarray:
-        """|E| at element vertices (nelements, 3), V/m: the field the peaks and hotspots were found on."""
-        if self.recovery is None:
-            return self.fields.E_magnitude
-        return self.recovery.peak_search_field(self.fields.E_magnitude, self.problem.element_order)
 
 
 @dataclass(frozen=True)
 class _Pass(_Computed):
     """One pass of the loop; once a newer pass exists only ``record`` is kept (the rest is None)."""
 
-    recovery: Recovery
-    magnitude: np.ndarray  # |E| at element vertices for the peak search (``Recovery.peak_search_field``)
     record: PassRecord
 
 
@@ -148,15 +142,15 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
     last = passes[-1]
     problem = last.problem
     if peaks is None:
-        hotspots = stage("hotspots", lambda: find_hotspots(problem, last.magnitude, case.hotspot_fraction))
+        hotspots = stage("hotspots", lambda: find_hotspots(problem, last.peak_search_field, case.hotspot_fraction))
         certificates = stage("certificates", lambda: _certify_all(case, passes, hotspots))
     else:  # the convergence check of the last pass found them already
         hotspots, certificates = peaks
     gas_gaps = stage("gas gaps", lambda: screen_gas_gaps(problem, last.fields, case.gas_pressure))
-    corona = stage("corona", lambda: screen_corona(problem, last.magnitude, case.gas_pressure))
+    corona = stage("corona", lambda: screen_corona(problem, last.peak_search_field, case.gas_pressure))
     computed = {f.name: getattr(last, f.name) for f in dataclass_fields(_Computed)}
     return SectionResult(**computed, case=case, hotspots=hotspots, gas_gaps=gas_gaps, stage_seconds=seconds,
-                         recovery=last.recovery, passes=tuple(p.record for p in passes), certificates=certificates,
+                         passes=tuple(p.record for p in passes), certificates=certificates,
                          stop_reason=stop_reason, corona=corona)
 
 
@@ -177,13 +171,13 @@ def _one_pass(case: Case, size_field: SizeField | None, stage) -> _Pass:
     recovery = stage("recovery", lambda: recover_field(solution, case.refinement.adaptive, fields))
     charges = stage("charges", lambda: compute_charges(solution, fields))
     capacitance = stage("capacitance", lambda: compute_capacitance(solution, fields, charges))
-    magnitude = recovery.peak_search_field(fields.E_magnitude, problem.element_order)
-    vertex_fields = region_vertex_fields(section, magnitude, list(problem.material_of_region))
+    peak_search_field = recovery.peak_search_field(fields.E_magnitude, problem.element_order)
+    vertex_fields = region_vertex_fields(section, peak_search_field, list(problem.material_of_region))
     record = PassRecord(problem.ndofs, section.mesh.nelements, capacitance.maxwell_from_charge,
                         capacitance.energy_per_length, recovery.estimated_error,
                         {name: float(v.values.max()) for name, v in vertex_fields.items()}, vertex_fields,
                         time.perf_counter() - start)
-    return _Pass(section, problem, solution, fields, charges, capacitance, recovery, magnitude, record)
+    return _Pass(section, problem, solution, fields, charges, capacitance, recovery, peak_search_field, record)
 
 
 def _settled(case: Case, passes: list[_Pass]) -> tuple[bool, tuple[HotspotResult, Certificates] | None]:
@@ -198,7 +192,7 @@ def _settled(case: Case, passes: list[_Pass]) -> tuple[bool, tuple[HotspotResult
     if now.estimated_error ** 2 > tolerance:  # (energy-norm error)^2 ~ relative error of the capacitance
         return False, None
     last = passes[-1]
-    hotspots = find_hotspots(last.problem, last.magnitude, case.hotspot_fraction)
+    hotspots = find_hotspots(last.problem, last.peak_search_field, case.hotspot_fraction)
     certificates = _certify_all(case, passes, hotspots)
     every = [*certificates.regions.values(), *certificates.hotspots, *certificates.triple_points]
     return all(c.status != "not converged" for c in every), (hotspots, certificates)

@@ -218,7 +218,7 @@ def recover_field(solution: Solution, for_refinement: bool = True, fields: Eleme
     if fields is not None and fields.E.shape[0] != problem.section.mesh.nelements:
         raise ValueError("the element fields are of another mesh; pass those of this solution")
     if not for_refinement:
-        constant = fields is not None and isinstance(project, _LinearProjector) and fields.E.strides[1] == 0
+        constant = fields is not None and isinstance(project, _LinearProjector) and fields.constant_in_elements
         E_h = fields.E[:, 0, :].T if constant else project.field(u)
         coefficients = project.project(E_h)
         indicator = project.indicator(coefficients, E_h)

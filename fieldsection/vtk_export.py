@@ -34,10 +34,10 @@ from .solve import Solution
 UNKNOWN_UTILISATION = -1.0
 
 
-def _centroid_xyz(vertex_values: np.ndarray) -> np.ndarray:
-    """(nelements, 3, 2) vertex values -> (nelements, 3) centroid values with z = 0."""
-    # constant in each element (linear elements, stored as a broadcast view): no mean to take
-    mean = vertex_values[:, 0] if vertex_values.strides[1] == 0 else vertex_values.mean(axis=1)
+def _centroid_xyz(vertex_values: np.ndarray, constant: bool) -> np.ndarray:
+    """(nelements, 3, 2) vertex values -> (nelements, 3) centroid values with z = 0; ``constant``: one value
+    per element (``ElementFields.constant_in_elements``), so no mean to take."""
+    mean = vertex_values[:, 0] if constant else vertex_values.mean(axis=1)
     out = np.zeros((len(mean), 3))  # C order, as written (column_stack of these views gave Fortran order: a copy)
     out[:, :2] = mean
     return out
@@ -58,9 +58,9 @@ def section_to_meshio(problem: AssembledProblem, solution: Solution, fields: Ele
     points[:, :2] = mesh.p[:, :n_vertices].T  # MeshTri2's p also holds the mid-edge nodes
     utilisation = np.where(np.isfinite(hotspots.utilisation), hotspots.utilisation, UNKNOWN_UTILISATION)
     cell_data = {
-        "E": _centroid_xyz(fields.E),
-        "D": _centroid_xyz(fields.D),
-        "P": _centroid_xyz(fields.P),
+        "E": _centroid_xyz(fields.E, fields.constant_in_elements),
+        "D": _centroid_xyz(fields.D, fields.constant_in_elements),
+        "P": _centroid_xyz(fields.P, fields.constant_in_elements),
         "E_magnitude_peak": fields.element_peak_E.astype(np.float64),
         "utilisation": utilisation.astype(np.float64),
         "region_id": problem.section.region_of_element.astype(np.int32),
