@@ -321,7 +321,29 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
             f"case file {path.name}: {exc}{culprit}; each key may appear once (an electrode gets exactly one "
             "potential) and strings need quotes"
         ) from None
-    where = path.name
+    return case_from_mapping(data, name=path.stem, base_dir=path.parent, where=path.name,
+                             source_file=path.resolve(), trust_script=trust_script)
+
+
+def case_from_mapping(
+    data: Mapping[str, Any],
+    *,
+    name: str,
+    base_dir: str | Path,
+    where: str | None = None,
+    source_file: Path | None = None,
+    trust_script: bool = False,
+) -> Case:
+    """Validate a case given as the mapping a TOML case file parses into.
+
+    ``base_dir`` is where the geometry script is looked up (as for a case file in that folder);
+    ``where`` names the source in error messages (default: ``name``). Design studies build their
+    variants this way, from a base case's mapping with some values replaced.
+    """
+    where = where or name
+    base_dir = Path(base_dir)
+    if not isinstance(data, Mapping):
+        raise CaseFileError(f"{where}: a case must be a table of sections, got {type(data).__name__}")
     _check_keys(data, _TOP_KEYS, where)
 
     geometry_table = _table(data, "geometry", where)
@@ -333,7 +355,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
     if not length_unit_m > 0:
         raise CaseFileError(f"geometry.length_unit = {unit_name!r}: give the unit of the script's coordinates, "
                             "e.g. 'mm' or 'm'")
-    script = _find_script(str(geometry_table["script"]), path.parent)
+    script = _find_script(str(geometry_table["script"]), base_dir)
     if script.suffix.lower() != ".geo":
         raise CaseFileError(f"geometry.script = {script.name!r}: give a gmsh geometry script (.geo)")
     parameters = {
@@ -416,7 +438,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
     _check_keys(solver_table, {"method"}, f"{where} [solver]")
     title = data.get("title", "")
     return Case(
-        name=path.stem,
+        name=name,
         title=str(title),
         geometry=ScriptGeometry(script, parameters, length_unit_m, trusted=trust_script),
         regions=regions,
@@ -424,7 +446,7 @@ def load_case(path: str | Path, *, trust_script: bool = False) -> Case:
         outer_boundary=str(boundary.get("outer", "grounded")),
         hotspot_fraction=hotspots.get("fraction", DEFAULT_HOTSPOT_FRACTION),
         mesh=mesh,
-        source_file=path.resolve(),
+        source_file=source_file,
         floating=floating,
         insulated_curves=frozenset(insulated),
         symmetry_copies=_whole(symmetry.get("copies", 1), "symmetry.copies"),
