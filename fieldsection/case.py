@@ -46,6 +46,9 @@ MODELS = {
 ELEMENT_ORDERS = (1, 2, 3)
 MAX_REFINEMENTS = 6  # each uniform refinement multiplies the element count by 4
 DEFAULT_HOTSPOT_FRACTION = 0.5
+#: a potential above this is taken as a unit mistake (the energy of such a field would overflow doubles
+#: long before; no equipment this tool is for comes near it)
+LARGEST_POTENTIAL = 1e9
 SOLVER_METHODS = {
     "auto": "chosen by the size of the system and the solvers installed",
     "direct": "a sparse factorisation reused for every conductor (PARDISO if installed, else SuperLU)",
@@ -184,8 +187,11 @@ class Case:
         if both:
             raise CaseFileError(f"electrodes.{both[0]}: both a potential and floating; give one of the two")
         for name, potential in self.electrodes.items():
-            if not math.isfinite(potential):
-                raise CaseFileError(f"electrodes.{name}: potential {potential!r} is not finite")
+            if isinstance(potential, bool) or not isinstance(potential, (int, float)) or not math.isfinite(potential):
+                raise CaseFileError(f"electrodes.{name}: potential {potential!r} is not a finite number of volts")
+            if abs(potential) > LARGEST_POTENTIAL:
+                raise CaseFileError(f"electrodes.{name}: potential {potential:.3g} V is beyond "
+                                    f"{LARGEST_POTENTIAL:.0e} V; check the unit (e.g. '12 kV')")
         for name, charge in self.floating.items():
             if not math.isfinite(charge):
                 raise CaseFileError(f"electrodes.{name}: charge {charge!r} is not finite")
@@ -253,6 +259,20 @@ def _script_parameter(name: str, value: Any, length_unit_m: float) -> float:
     if not isinstance(value, (int, float)) or not math.isfinite(value):
         raise CaseFileError(f"{where}: {value!r} is not a finite number or a length such as '2 mm'")
     return float(value)
+
+
+def _text(value: Any, where: str, choices: Mapping[str, str] | None = None) -> str:
+    """A string value; with ``choices``, one of their keys."""
+    listed = "" if choices is None else f": use one of {', '.join(map(repr, choices))}"
+    if not isinstance(value, str):
+        raise CaseFileError(f"{where} = {value!r}: must be text in quotes{listed}")
+    if choices is not None and value not in choices:
+        raise CaseFileError(f"{where} = {value!r}{listed}")
+    return value
+
+
+def _starts_with_number(text: str) -> bool:
+    return bool(re.match(r"\s*[+-]?[\d.]", text))
 
 
 def _whole(value: Any, where: str) -> int:
@@ -350,12 +370,16 @@ def case_from_mapping(
     _check_keys(geometry_table, {"script", "length_unit", "parameters", "model"}, f"{where} [geometry]")
     if "script" not in geometry_table:
         raise CaseFileError(f"{where}: [geometry] needs script = \"name.geo\"")
-    unit_name = geometry_table.get("length_unit", "m")
-    length_unit_m = to_si(f"1 {unit_name}", "length", "geometry.length_unit") if isinstance(unit_name, str) else 0.0
+    unit_name = _text(geometry_table.get("length_unit", "m"), "geometry.length_unit")
+    try:
+        length_unit_m = to_si(unit_name if _starts_with_number(unit_name) else f"1 {unit_name}", "length",
+                              "geometry.length_unit")
+    except FieldSectionError:
+        length_unit_m = 0.0
     if not length_unit_m > 0:
         raise CaseFileError(f"geometry.length_unit = {unit_name!r}: give the unit of the script's coordinates, "
                             "e.g. 'mm' or 'm'")
-    script = _find_script(str(geometry_table["script"]), base_dir)
+    script = _find_script(_text(geometry_table["script"], "geometry.script"), base_dir)
     if script.suffix.lower() != ".geo":
         raise CaseFileError(f"geometry.script = {script.name!r}: give a gmsh geometry script (.geo)")
     parameters = {
@@ -380,7 +404,7 @@ def case_from_mapping(
 
     electrodes: dict[str, float] = {}
     floating: dict[str, float] = {}
-    model = str(geometry_table.get("model", "planar"))
+    model = _text(geometry_table.get("model", "planar"), "geometry.model", MODELS)
     charge_kind = "charge" if model == "planar" else "total charge"
     for key, value in _table(data, "electrodes", where).items():
         kind, number = _electrode(str(key), value)
@@ -393,7 +417,7 @@ def case_from_mapping(
     _check_keys(boundary, {"outer", "curves"}, f"{where} [boundary]")
     insulated = set()
     for curve, kind in _table(boundary, "curves", f"{where} [boundary]").items():
-        if kind not in CURVE_KINDS:
+        if not isinstance(kind, str) or kind not in CURVE_KINDS:
             raise CaseFileError(
                 f"boundary.curves.{curve} = {kind!r}: use {' or '.join(map(repr, CURVE_KINDS))} (zero normal D); "
                 "a curve at a fixed potential is an electrode"
@@ -436,14 +460,14 @@ def case_from_mapping(
     )
     solver_table = _table(data, "solver", where)
     _check_keys(solver_table, {"method"}, f"{where} [solver]")
-    title = data.get("title", "")
+    title = _text(data.get("title", ""), "title")
     return Case(
         name=name,
         title=str(title),
         geometry=ScriptGeometry(script, parameters, length_unit_m, trusted=trust_script),
         regions=regions,
         electrodes=electrodes,
-        outer_boundary=str(boundary.get("outer", "grounded")),
+        outer_boundary=_text(boundary.get("outer", "grounded"), "boundary.outer", OUTER_BOUNDARY_KINDS),
         hotspot_fraction=hotspots.get("fraction", DEFAULT_HOTSPOT_FRACTION),
         mesh=mesh,
         source_file=source_file,
@@ -453,7 +477,7 @@ def case_from_mapping(
         model=model,
         gas_pressure=to_si(hotspots.get("gas_pressure", 101_325.0), "pressure", "hotspots.gas_pressure"),
         refinement=refinement,
-        solver=solver_table.get("method", "auto"),
+        solver=_text(solver_table.get("method", "auto"), "solver.method", SOLVER_METHODS),
     )
 
 

@@ -81,38 +81,48 @@ def material_from_mapping(name: str, entry: Mapping[str, Any], where: str) -> Ma
         )
     if "relative_permittivity" not in entry:
         raise MaterialError(f"{where}: 'relative_permittivity' is required")
-    er = entry["relative_permittivity"]
-    if isinstance(er, bool) or not isinstance(er, (int, float)):
-        raise MaterialError(f"{where}: relative_permittivity must be a number, got {er!r}")
+    er = _plain_number(entry, "relative_permittivity", where)
     strength: float | None = None
     if "dielectric_strength" in entry and "dielectric_strength_kV_per_mm" in entry:
         raise MaterialError(f"{where}: give either dielectric_strength or dielectric_strength_kV_per_mm, not both")
     if "dielectric_strength" in entry:
         strength = to_si(entry["dielectric_strength"], "field", f"{where}.dielectric_strength")
     elif "dielectric_strength_kV_per_mm" in entry:
-        value = entry["dielectric_strength_kV_per_mm"]
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise MaterialError(f"{where}: dielectric_strength_kV_per_mm must be a number, got {value!r}")
-        strength = float(value) * 1e6
-    tan_d = entry.get("loss_tangent")
+        strength = _plain_number(entry, "dielectric_strength_kV_per_mm", where) * 1e6
+    tan_d = None if "loss_tangent" not in entry else _plain_number(entry, "loss_tangent", where)
+    for key in ("kind", "source"):
+        if key in entry and not isinstance(entry[key], str):
+            raise MaterialError(f"{where}.{key} = {entry[key]!r}: must be text in quotes"
+                                + (f", one of {', '.join(MATERIAL_KINDS)}" if key == "kind" else ""))
     paschen = None
     given = [k for k in _PASCHEN_KEYS if k in entry]
     if given:
         if len(given) != 3:
             raise MaterialError(f"{where}: Paschen constants need all of {', '.join(_PASCHEN_KEYS)}")
-        a, b, gamma = (entry[k] for k in _PASCHEN_KEYS)
-        if not all(isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0 for v in (a, b, gamma)):
-            raise MaterialError(f"{where}: Paschen constants must be positive numbers")
+        a, b, gamma = (_plain_number(entry, k, where) for k in _PASCHEN_KEYS)
+        if not all(v > 0 for v in (a, b, gamma)) or gamma >= 1:
+            raise MaterialError(f"{where}: Paschen constants must be positive numbers (the secondary emission "
+                                f"coefficient below 1), got A = {a!r}, B = {b!r}, gamma = {gamma!r}")
         paschen = (a / 1e3 / 1e-2, b / 1e3 / 1e-2, float(gamma))  # per kPa cm -> per Pa m
     return Material(
         name=name,
         relative_permittivity=float(er),
         dielectric_strength=strength,
         kind=str(entry.get("kind", "solid")),
-        loss_tangent=None if tan_d is None else float(tan_d),
+        loss_tangent=tan_d,
         source=str(entry.get("source", "defined in the case file")),
         paschen=paschen,
     )
+
+
+def _plain_number(entry: Mapping[str, Any], key: str, where: str) -> float:
+    """A finite number given without units (TOML integer or float)."""
+    value = entry[key]
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise MaterialError(f"{where}.{key} = {value!r}: must be a plain number without quotes")
+    if not math.isfinite(value):
+        raise MaterialError(f"{where}.{key} = {value!r}: must be a finite number")
+    return float(value)
 
 
 @lru_cache(maxsize=1)

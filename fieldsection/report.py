@@ -7,6 +7,7 @@ file is complete, so a failed run never leaves a half-written report.
 from __future__ import annotations
 
 import json
+import math
 import os
 import shutil
 import tempfile
@@ -22,12 +23,29 @@ from .results import build_results
 FIELDS_FILE = "fields.vtk"
 
 
+def _number(value, fmt: str) -> str:
+    """``fmt % value``, or a dash for a value that is missing or not finite (the report renders every result)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        return "–"
+    return fmt % value
+
+
+def _point(value) -> str:
+    """An (x, y) location in mm."""
+    try:
+        return f"{_number(value[0], '%.3f')}, {_number(value[1], '%.3f')}"
+    except (TypeError, IndexError):
+        return "–"
+
+
 def _render_html(results: dict, figures: list[dict[str, str]]) -> str:
     env = Environment(
         loader=PackageLoader("fieldsection", "templates"),
         autoescape=select_autoescape(["html", "j2"]),
         undefined=StrictUndefined,
     )
+    env.filters["num"] = _number
+    env.filters["xy"] = _point
     planar = results["case"]["model"] == "planar"
     return env.get_template("report.html.j2").render(r=results, figures=figures, fields_file=FIELDS_FILE,
                                                      L="_per_m" if planar else "", PER="/m" if planar else "")

@@ -44,13 +44,33 @@ def _num(value: float | None, scale: float = 1.0) -> float | None:
 
 
 def _certified(cert, value: float, strength: float | None) -> dict[str, Any]:
-    """A peak field with its certificate; a singular value is labelled mesh-dependent, never a peak field."""
+    """A peak field with its certificate; a singular value is labelled mesh-dependent, never a peak field.
+
+    Every status gives the same keys (``None`` where a key does not apply), so that the report can
+    render any result.
+    """
+    share_of = (lambda v: None if strength is None else v / strength)
+    out: dict[str, Any] = {
+        "status": "not certified",
+        "peak_E_kV_per_mm": value * 1e-6,
+        "fraction_of_strength": share_of(value),
+        "estimated_relative_error": None,
+        "measured_growth_exponent": None,
+        "corner_theory_exponent": None,
+        "corner_field_side_angle_deg": None,
+        "history_kV_per_mm": [],
+        "local_element_size_mm": [],
+        "mesh_dependent_E_kV_per_mm": None,
+        "mesh_dependent_fraction_of_strength": None,
+        "advised_edge_radius_mm": None,
+        "advice": None,
+    }
     if cert is None:
-        return {"peak_E_kV_per_mm": value * 1e-6, "status": "not certified"}
+        return out
     value = cert.value  # the tracked value: its history ends with it
     singular = cert.status == SINGULAR
-    share = None if strength is None else value / strength
-    out: dict[str, Any] = {
+    share = share_of(value)
+    out.update({
         "status": cert.status,
         "peak_E_kV_per_mm": None if singular else value * 1e-6,
         "fraction_of_strength": None if singular else share,
@@ -60,7 +80,7 @@ def _certified(cert, value: float, strength: float | None) -> dict[str, Any]:
         "corner_field_side_angle_deg": _num(cert.field_angle_deg),
         "history_kV_per_mm": [v * 1e-6 for v in cert.history],
         "local_element_size_mm": [h * 1e3 for h in cert.sizes],
-    }
+    })
     if singular:
         out["mesh_dependent_E_kV_per_mm"] = value * 1e-6
         out["mesh_dependent_fraction_of_strength"] = share

@@ -7,6 +7,8 @@ Parsing is delegated to pint; its registry is built lazily because it costs ~1 s
 from __future__ import annotations
 
 import math
+import re
+import warnings
 from functools import lru_cache
 from typing import Any
 
@@ -44,26 +46,53 @@ def to_si(value: Any, kind: str, what: str) -> float:
         return _finite(float(value), what)
     if not isinstance(value, str):
         raise UnitError(f"{what}: expected a number or a string like '2 mm', got {value!r}")
-    text = value.strip()
-    try:
-        return _finite(float(text), what)
-    except ValueError:
-        pass
+    magnitude, unit_text = _split_quantity(value, kind, what)
+    if not unit_text:
+        return _finite(magnitude, what)
     import pint
 
     registry = _registry()
     try:
-        quantity = registry.Quantity(text)
-    except (pint.errors.PintError, ValueError, TypeError, AttributeError, SyntaxError) as exc:
-        raise UnitError(f"{what}: cannot read {value!r} as a {kind} ({exc}); write e.g. '2 mm', '12 kV'") from None
+        units = registry.parse_units(unit_text)
+    except (pint.errors.PintError, ValueError, TypeError, AttributeError, SyntaxError, KeyError) as exc:
+        raise UnitError(f"{what}: unknown unit {unit_text!r} in {value!r} ({exc}); write e.g. '2 mm', '12 kV'") from None
     target = SI_UNITS[kind]
     try:
-        converted = quantity.to(target) if target else quantity.to("dimensionless")
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # overflow to inf is caught below
+            quantity = registry.Quantity(magnitude, units)
+            converted = quantity.to(target) if target else quantity.to("dimensionless")
     except pint.errors.DimensionalityError:
         raise UnitError(
             f"{what}: {value!r} is not a {kind}; give it in {target or 'no unit'} or a multiple of it"
         ) from None
+    except (pint.errors.PintError, ArithmeticError, ValueError) as exc:
+        raise UnitError(f"{what}: cannot convert {value!r} to {target or 'a plain number'} ({exc})") from None
     return _finite(float(converted.magnitude), what)
+
+
+#: a value with units is a number, then a unit: a product or quotient of unit names with small integer
+#: powers. No arithmetic is evaluated, so "1/0 kV" or "10**10**10 V" are refused before pint sees them.
+_NUMBER = r"[+-]?(?:\d+(?:_\d+)*(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"
+_UNIT_NAME = r"[A-Za-z_\u00b5\u03bc\u03a9\u00b0][A-Za-z0-9_\u00b5\u03bc\u03a9\u00b0]*(?:\s*(?:\*\*|\^)\s*[+-]?\d{1,2})?"
+_UNIT = rf"(?:1\s*/\s*)?{_UNIT_NAME}(?:\s*[*/\u00b7]\s*{_UNIT_NAME}|\s+{_UNIT_NAME})*"
+_QUANTITY = re.compile(rf"\s*({_NUMBER})\s*({_UNIT})?\s*")
+_LONGEST_TEXT = 100
+
+
+def _split_quantity(text: str, kind: str, what: str) -> tuple[float, str]:
+    """(magnitude, unit text) of a string such as ``"12 kV"`` or ``"2.5e-3 kV/mm"``; refuse anything else."""
+    hint = {"length": "'2 mm'", "voltage": "'12 kV'", "field": "'20 kV/mm'", "charge": "'1e-9 C/m'",
+            "total charge": "'1e-12 C'", "pressure": "'1 atm'"}.get(kind, "'0.5'")
+    found = _QUANTITY.fullmatch(text) if len(text) <= _LONGEST_TEXT else None
+    if found is None:
+        raise UnitError(f"{what}: cannot read {text[:_LONGEST_TEXT]!r} as a {kind}: write a number and a unit, "
+                        f"e.g. {hint} (no arithmetic)")
+    try:
+        magnitude = float(found.group(1).replace("_", ""))
+    except ValueError:  # pragma: no cover - the pattern admits only float syntax
+        raise UnitError(f"{what}: cannot read the number in {text!r}") from None
+    return _finite(magnitude, what), (found.group(2) or "").strip()
 
 
 def _finite(number: float, what: str) -> float:
