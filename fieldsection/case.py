@@ -89,8 +89,13 @@ class MeshSettings:
     #: mesh at 2**k times the sizes, then split every triangle into four, k times; None (the default):
     #: chosen by the meshing stage, 0 unless the mesh would be big (see ``gmsh_adapter.AUTO_SPLIT_ABOVE``)
     refinements: int | None = None
+    #: largest mesh (vertices) to attempt; None: derived from the machine's memory (``mesh_budget``)
+    max_nodes: int | None = None
 
     def __post_init__(self) -> None:
+        n = self.max_nodes
+        if n is not None and (isinstance(n, bool) or not isinstance(n, int) or n < 100):
+            raise CaseFileError(f"max_nodes = {n!r}: a whole number of mesh nodes, at least 100")
         k = self.refinements
         if k is not None and (isinstance(k, bool) or not isinstance(k, int) or not 0 <= k <= MAX_REFINEMENTS):
             raise CaseFileError(
@@ -360,7 +365,7 @@ def case_from_mapping(
     ``where`` names the source in error messages (default: ``name``). Design studies build their
     variants this way, from a base case's mapping with some values replaced.
     """
-    where = where or name
+    case_name, where = name, where or name
     base_dir = Path(base_dir)
     if not isinstance(data, Mapping):
         raise CaseFileError(f"{where}: a case must be a table of sections, got {type(data).__name__}")
@@ -462,7 +467,7 @@ def case_from_mapping(
     _check_keys(solver_table, {"method"}, f"{where} [solver]")
     title = _text(data.get("title", ""), "title")
     return Case(
-        name=name,
+        name=case_name,
         title=str(title),
         geometry=ScriptGeometry(script, parameters, length_unit_m, trusted=trust_script),
         regions=regions,

@@ -1,12 +1,13 @@
 """Command line: ``fieldsection run CASE`` and ``fieldsection materials``.
 
 Only this module prints and sets exit codes: 0 success, 2 bad input (a one-line message naming
-the culprit and the fix), 1 an unexpected failure.
+the culprit and the fix), 1 an unexpected failure, 130 interrupted (Ctrl-C).
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import time
 from dataclasses import replace
@@ -16,6 +17,7 @@ from . import __version__
 from .errors import FieldSectionError, ReportError
 
 EXIT_OK, EXIT_FAILURE, EXIT_BAD_INPUT = 0, 1, 2
+EXIT_INTERRUPTED = 130  # 128 + SIGINT, as shells report it
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -36,6 +38,8 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--solver", choices=("auto", "direct", "iterative"), default=None,
                      help="linear solver, overriding the case's [solver] method: direct factorisation (PARDISO if "
                           "installed, else SuperLU), iterative (AMG-preconditioned CG), or auto (by size)")
+    run.add_argument("--max-nodes", type=_positive_whole, default=None, metavar="N",
+                     help="largest mesh (nodes) to attempt; default: derived from this machine's memory")
     verbs.add_parser("materials", help="list the shipped materials table")
     return parser
 
@@ -50,6 +54,8 @@ def _run(args: argparse.Namespace) -> int:
     case = load_case(args.case, trust_script=args.trust_script)
     if args.solver is not None:
         case = replace(case, solver=args.solver)
+    if args.max_nodes is not None:
+        case = replace(case, mesh=replace(case.mesh, max_nodes=args.max_nodes))
     writing = 7  # results, five figures, the VTK file
     with tqdm(total=len(STAGES) + writing, disable=args.quiet, unit="stage", desc=case.name, file=sys.stderr) as bar:
         peaks: list[tuple[str, float, float]] = []  # (stage, start time, peak memory so far)
@@ -79,6 +85,16 @@ def _run(args: argparse.Namespace) -> int:
         print(f"{mesh.nvertices} vertices, {mesh.nelements} elements, {result.problem.ndofs} DOFs; "
               f"linear solver {result.solution.solver}")
     return EXIT_OK
+
+
+def _positive_whole(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 100:
+        raise argparse.ArgumentTypeError(f"{value} is too small: give at least 100")
+    return value
 
 
 def _peak_memory_gib() -> float:
@@ -146,6 +162,12 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print("fieldsection: interrupted; no report was written", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    except Exception as exc:  # a bug, not the input's fault: one line, unless asked for the traceback
+        if os.environ.get("FIELDSECTION_TRACEBACK"):
+            raise
+        print(f"fieldsection: internal error: {type(exc).__name__}: {exc}; no report was written. Please report it "
+              "with the case file (FIELDSECTION_TRACEBACK=1 shows where it happened)", file=sys.stderr)
         return EXIT_FAILURE
 
 

@@ -23,6 +23,7 @@ import numpy as np
 from .case import MAX_REFINEMENTS, BuilderGeometry, MeshSettings, ScriptGeometry
 from .errors import GeometryError, MeshError
 from .geometry import screen_script
+from .mesh_budget import CurveSizing, NodeEstimate, SurfaceSizing, default_node_limit, estimate_nodes, refuse_if_too_big
 from .splitting import Snap, split_into_four, with_mid_edge_nodes
 
 #: seconds one meshing may take before it is stopped (a mistyped size can ask for billions of elements)
@@ -366,6 +367,61 @@ def _apply_sizes(gmsh, settings: MeshSettings, scale: float, surfaces: dict, cur
         gmsh.model.mesh.field.setAsBackgroundMesh(combined)
 
 
+def _node_estimate(gmsh, settings: MeshSettings, scale: float, surfaces: dict, curves: dict,
+                   electrode_names) -> NodeEstimate:
+    """Areas, lengths and the largest element size each may have, read from the loaded model (before meshing).
+
+    Loops run over the geometry's surfaces and curves (tens to hundreds), never over mesh entities.
+    """
+    factor = gmsh.option.getNumber("Mesh.MeshSizeFactor")
+    smallest = gmsh.option.getNumber("Mesh.MeshSizeMin")
+    largest = gmsh.option.getNumber("Mesh.MeshSizeMax")  # includes the case's mesh.size
+    from_points = gmsh.option.getNumber("Mesh.MeshSizeFromPoints") == 1
+    extend = gmsh.option.getNumber("Mesh.MeshSizeExtendFromBoundary") == 1
+
+    def in_metres(size: float) -> float:
+        size = max(size, smallest)  # gmsh's smallest size overrides every other
+        return math.inf if size >= 1e21 else size * factor * scale
+
+    point_size: dict[int, float] = {}
+    points = [tag for _, tag in gmsh.model.getEntities(0)]
+    if points and from_points:
+        point_size = dict(zip(points, gmsh.model.mesh.getSizes([(0, t) for t in points])))
+    samples = np.linspace(0.0, 1.0, 33)
+    shape: dict[int, tuple[float, float, float]] = {}  # curve -> (length, integral of x dy, largest size)
+    for _, curve in gmsh.model.getEntities(1):
+        low, high = gmsh.model.getParametrizationBounds(1, curve)
+        xyz = np.asarray(gmsh.model.getValue(1, curve, low[0] + samples * (high[0] - low[0]))).reshape(-1, 3)
+        steps = np.diff(xyz[:, :2], axis=0)
+        ends = [point_size.get(abs(t), 0.0) for _, t in gmsh.model.getBoundary([(1, curve)], False, False)]
+        bound = max(ends) if ends and min(ends) > 0 else math.inf
+        x_dy = float(np.sum(0.5 * (xyz[1:, 0] + xyz[:-1, 0]) * steps[:, 1]))
+        shape[curve] = (float(np.hypot(*steps.T).sum()), x_dy, min(bound, largest))
+
+    surface_sizings = []
+    for name, tags in surfaces.items():
+        for tag in tags:
+            boundary = gmsh.model.getBoundary([(2, tag)], combined=False, oriented=True)
+            area = abs(sum(math.copysign(shape[abs(c)][1], c) for _, c in boundary if abs(c) in shape))
+            bounds = [shape[abs(c)][2] for _, c in boundary if abs(c) in shape]
+            size = min(largest, max(bounds) if bounds and extend else math.inf)
+            if name in settings.region_sizes:
+                size = min(size, settings.region_sizes[name] / scale)
+            surface_sizings.append(SurfaceSizing(name, area * scale**2, in_metres(size)))
+    near = settings.near_electrodes
+    electrode_curves: dict[int, str] = {}
+    for name in electrode_names:
+        for tag in curves.get(name, ()):
+            electrode_curves[tag] = name
+    curve_sizings = []
+    for curve, (length, _, size) in shape.items():
+        label = f"{curve}" + (f" (electrode {electrode_curves[curve]!r})" if curve in electrode_curves else "")
+        if near is not None and curve in electrode_curves:
+            size = min(size, near / scale)
+        curve_sizings.append(CurveSizing(label, length * scale, in_metres(size)))
+    return estimate_nodes(surface_sizings, curve_sizings)
+
+
 def curve_segments(gmsh, index_of: np.ndarray) -> dict[int, np.ndarray]:
     """The line segments (s, 2) of every curve entity of gmsh's current mesh, as node indices through
     ``index_of`` (gmsh node tag -> index)."""
@@ -446,6 +502,10 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
             f"Physical Surface(\"my_region\") = {{{loose[0]}}}; and map it in [regions] (or make it a hole)"
         )
     _apply_sizes(gmsh, settings, scale, surfaces, curves, electrode_names & (set(surfaces) | set(curves)), size_field)
+    if size_field is None:  # adaptive passes size their meshes from the DOF budget
+        limit = settings.max_nodes or default_node_limit(settings.element_order)
+        refuse_if_too_big(_node_estimate(gmsh, settings, scale, surfaces, curves, electrode_names), limit,
+                          explicit=settings.max_nodes is not None)
     # linear triangles from gmsh whatever the script asks (Mesh.ElementOrder): curved elements get their
     # mid-edge nodes here, after the splitting, from [mesh] curved
     gmsh.option.setNumber("Mesh.ElementOrder", 1)

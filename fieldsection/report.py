@@ -11,6 +11,7 @@ import math
 import os
 import shutil
 import tempfile
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Callable
 
@@ -73,7 +74,8 @@ def write_report(
     except OSError as exc:
         raise ReportError(f"cannot create the reports folder {str(reports_dir)!r}: {exc.strerror}") from None
     target = reports_dir / result.case.name
-    staging = Path(tempfile.mkdtemp(prefix=f".{result.case.name}.partial-", dir=reports_dir))
+    remove_stale_folders(reports_dir)
+    staging = Path(tempfile.mkdtemp(prefix=f".{result.case.name}{_PARTIAL}{os.getpid()}-", dir=reports_dir))
     umask = os.umask(0)
     os.umask(umask)
     os.chmod(staging, 0o777 & ~umask)  # mkdtemp makes it private; a report folder is an ordinary one
@@ -109,9 +111,11 @@ def write_report(
         if on_step:
             on_step(FIELDS_FILE)
         write_vtk(result.problem, result.solution, result.fields, result.hotspots, staging / FIELDS_FILE)
-        (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default), encoding="utf-8")
+        (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default, allow_nan=False),
+                                             encoding="utf-8")
         (staging / "report.html").write_text(_render_html(results, figure_list), encoding="utf-8")
-        _replace_folder(staging, target)
+        with _locked(reports_dir):  # two runs of one case: each swap whole, the later one wins
+            _replace_folder(staging, target)
     except OSError as exc:
         shutil.rmtree(staging, ignore_errors=True)
         raise ReportError(f"cannot write the report into {str(target)!r}: {exc}; no report was written") from exc
@@ -121,10 +125,60 @@ def write_report(
     return target
 
 
+_PARTIAL, _OLD = ".partial-", ".old-"  # hidden working folders: .<case>.partial-<pid>-<random>
+
+
+def remove_stale_folders(reports_dir: Path) -> list[Path]:
+    """Delete the working folders of runs that were killed (their process is gone); return what was removed.
+
+    A run killed with SIGKILL cannot clean up after itself: its staging folder carries its process id,
+    so the next run into the same reports folder recognises and removes it.
+    """
+    removed = []
+    for folder in reports_dir.glob(".*"):
+        marker = _PARTIAL if _PARTIAL in folder.name else _OLD if _OLD in folder.name else None
+        if marker is None or not folder.is_dir():
+            continue
+        owner = folder.name.split(marker, 1)[1].split("-", 1)[0]
+        if owner.isdigit() and _alive(int(owner)):
+            continue
+        shutil.rmtree(folder, ignore_errors=True)
+        removed.append(folder)
+    return removed
+
+
+def _alive(pid: int) -> bool:
+    if pid == os.getpid():
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+@contextmanager
+def _locked(folder: Path):
+    """An exclusive lock on ``folder`` (flock on its descriptor), released when the block ends or the process dies."""
+    try:
+        import fcntl
+    except ImportError:  # no flock on this platform: renames are still atomic one by one
+        yield
+        return
+    descriptor = os.open(folder, os.O_RDONLY)
+    try:
+        fcntl.flock(descriptor, fcntl.LOCK_EX)
+        yield
+    finally:
+        os.close(descriptor)  # closing releases the lock
+
+
 def _replace_folder(staging: Path, target: Path) -> None:
     old = None
     if target.exists():
-        old = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
+        old = Path(tempfile.mkdtemp(prefix=f".{target.name}{_OLD}{os.getpid()}-", dir=target.parent))
         old.rmdir()
         target.rename(old)
     try:

@@ -113,7 +113,6 @@ def _refinement(result: SectionResult) -> dict[str, Any]:
             "capacitance_relative_change": change,
             "estimated_energy_error": record.estimated_error,
             "peak_E_kV_per_mm": {name: v * 1e-6 for name, v in record.region_peaks.items()},
-            "seconds": record.seconds,
         })
         previous = C
     return {
@@ -131,9 +130,37 @@ def _refinement(result: SectionResult) -> dict[str, Any]:
 def build_results(result: SectionResult) -> dict[str, Any]:
     """Every number of a run; for a body of revolution the per-metre keys become whole-body ones."""
     results = _build(result)
-    if result.case.model == "planar":
-        return results
-    return _whole_body(results)
+    if result.case.model != "planar":
+        results = _whole_body(results)
+    missing: list[str] = []
+    results = _finite_only(results, "", missing)
+    if missing:
+        results["cautions"].append(
+            f"{len(missing)} value(s) could not be computed as finite numbers and are given as null: "
+            f"{', '.join(missing[:5])}{' ...' if len(missing) > 5 else ''}. Treat this run's results with suspicion "
+            "(extreme permittivity contrast, degenerate elements, or electrodes almost touching)."
+        )
+    return results
+
+
+def _finite_only(value: Any, path: str, missing: list[str]) -> Any:
+    """The same tree with numpy values as plain Python and every NaN or infinity replaced by None (listed)."""
+    if isinstance(value, dict):
+        return {k: _finite_only(v, f"{path}.{k}" if path else str(k), missing) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_finite_only(v, f"{path}[{i}]", missing) for i, v in enumerate(value)]
+    if isinstance(value, np.ndarray):
+        return _finite_only(value.tolist(), path, missing)
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        if not math.isfinite(value):
+            missing.append(path)
+            return None
+        return float(value)
+    return value
 
 
 def _whole_body(value: Any) -> Any:
@@ -338,6 +365,8 @@ def _build(result: SectionResult) -> dict[str, Any]:
         "solver": {"requested": case.solver, "used": result.solution.solver,
                    "relative_residual": result.solution.relative_residual},
         "notes": list(problem.notes),
-        "stage_seconds": result.stage_seconds,
         "cautions": list(CAUTIONS),
+        # the only part of a run that differs between two runs of the same case
+        "timings": {"stage_seconds": result.stage_seconds,
+                    "pass_seconds": [record.seconds for record in result.passes]},
     }
