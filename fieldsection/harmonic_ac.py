@@ -1,0 +1,153 @@
+"""AC, time-harmonic and quasi-static: -div((sigma + j omega eps) grad V) = 0 with complex phasors.
+
+Convention: the electrode potentials of the case are **peak values** (amplitudes) of sinusoids,
+V_k(t) = |V_k| cos(omega t + phi_k) with phi_k from ``[analysis.phases_deg]`` (a negative potential is an
+amplitude at 180 degrees). Peak fields are then the crest values the electrostatic analysis gives at
+those potentials, and the dielectric loss is the time average, P = 1/2 Re(V I*) = V_rms^2 G.
+
+The loss of a material with loss tangent tan(d) and conductivity sigma enters as the effective
+conductivity sigma_eff = sigma + omega eps tan(d) (eps'' = eps' tan(d)); a material with neither is
+lossless. The complex matrix A = K_sigma_eff + j omega K_eps is assembled from the two real ones (the
+form is linear in its coefficient), reduced over the free DOFs and floating conductors (which carry
+no net current) and factorised once with SuperLU (complex LU with partial pivoting), one solve per
+fixed conductor: the admittance matrix Y = G + j omega C per metre follows.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Mapping
+
+import numpy as np
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+from scipy.constants import epsilon_0
+
+from .case import Case
+from .conduction import element_values, region_peaks, region_quadratic, stiffness_with, vertex_field
+from .errors import SolverError
+from .problem import AssembledProblem, conductor_indicator
+
+
+@dataclass(frozen=True)
+class RegionAC:
+    region: str
+    material: str
+    peak_E: float  # V/m, largest |E(t)| over a period at the element vertices (no recovery, no certificate)
+    electrostatic_peak_E: float  # V/m, at the case's potentials without phases or conduction
+    dielectric_strength: float | None
+    effective_conductivity: float  # S/m, sigma + omega eps tan(d)
+    loss: float  # W/m (planar) or W, time average
+    elements_over_fraction: int  # elements whose peak reaches hotspot_fraction x strength
+
+    @property
+    def utilisation(self) -> float | None:
+        return None if self.dielectric_strength is None else self.peak_E / self.dielectric_strength
+
+
+@dataclass(frozen=True)
+class ACResult:
+    frequency: float  # Hz
+    potential: np.ndarray  # complex phasor per DOF, V (peak)
+    E_peak: np.ndarray  # (nelements, 3) largest |E(t)| over a period at element vertices, V/m
+    loss_density: np.ndarray  # (nelements,) time-averaged W/m^3 (mean over the element's vertices)
+    fixed_names: tuple[str, ...]
+    phasors: np.ndarray  # complex, V, per fixed conductor
+    admittance: np.ndarray  # S/m, complex (fixed x fixed)
+    currents: np.ndarray  # complex A/m (peak), net current out of each fixed conductor
+    regions: Mapping[str, RegionAC]
+    loss: float  # W/m or W: 1/2 Re(V . conj(I)) over the fixed conductors
+    loss_from_regions: float  # the sum of the regions' losses (a check on the same number)
+    notes: tuple[str, ...]
+    solver: str = "SuperLU (complex)"
+
+    @property
+    def capacitance(self) -> np.ndarray:
+        """F/m: Im(Y) / omega."""
+        return self.admittance.imag / (2 * math.pi * self.frequency)
+
+    @property
+    def conductance(self) -> np.ndarray:
+        """S/m: Re(Y)."""
+        return self.admittance.real
+
+
+class _ComplexSystem:
+    """T^T A T over the free DOFs and one potential per floating conductor, factorised once."""
+
+    def __init__(self, problem: AssembledProblem, matrix: sp.csr_matrix):
+        free = problem.free_dofs
+        floating = problem.floating
+        rows = np.concatenate([free] + [c.dofs for c in floating])
+        cols = np.concatenate([np.arange(free.size)] + [np.full(c.dofs.size, free.size + k)
+                                                        for k, c in enumerate(floating)])
+        self._T = sp.csr_matrix((np.ones(rows.size), (rows, cols)), shape=(problem.ndofs, free.size + len(floating)))
+        self._A = matrix
+        reduced = (self._T.T @ (matrix @ self._T)).tocsc()
+        try:  # structurally symmetric: a symmetric ordering, partial pivoting kept (complex symmetric, not definite)
+            self._lu = spla.splu(reduced, permc_spec="MMD_AT_PLUS_A")
+        except RuntimeError as exc:
+            raise SolverError(f"the complex AC system is singular ({exc}); check that every region touches an "
+                              "electrode or the grounded boundary") from None
+
+    def solve(self, lifts: np.ndarray) -> np.ndarray:
+        rhs = -(self._T.T @ (self._A @ lifts))
+        out = lifts + self._T @ self._lu.solve(rhs)
+        if not np.all(np.isfinite(out)):
+            raise SolverError("the AC solve produced non-finite potentials; the system is ill-conditioned")
+        return out
+
+
+def peak_over_period(real: np.ndarray, imag: np.ndarray) -> np.ndarray:
+    """max over t of |Re((a + j b) e^{j w t})| for 2D vectors a, b (..., 2): the polarisation ellipse's semi-major axis."""
+    aa = (real**2).sum(axis=-1)
+    bb = (imag**2).sum(axis=-1)
+    ab = (real * imag).sum(axis=-1)
+    return np.sqrt(0.5 * (aa + bb) + np.sqrt(0.25 * (aa - bb) ** 2 + ab**2))
+
+
+def analyse_ac(case: Case, problem: AssembledProblem, electrostatic_E_magnitude: np.ndarray) -> ACResult:
+    """The steady sinusoidal state at ``case.analysis.frequency`` on ``problem`` (the last electrostatic pass)."""
+    settings = case.analysis
+    omega = settings.omega
+    copies = problem.symmetry_copies
+    eps = epsilon_0 * problem.relative_permittivity
+    sigma_eff = element_values(problem, lambda m: (m.conductivity or 0.0)) \
+        + omega * eps * element_values(problem, lambda m: (m.loss_tangent or 0.0))
+    A = stiffness_with(problem, sigma_eff) + 1j * omega * problem.stiffness  # problem.stiffness is K_eps
+    system = _ComplexSystem(problem, A)
+    fixed = problem.fixed
+    lifts = conductor_indicator(problem, fixed).astype(complex)
+    unit = system.solve(lifts)
+    phasors = np.array([c.potential * np.exp(1j * math.radians(settings.phases_deg.get(c.name, 0.0)))
+                        for c in fixed])
+    u = unit @ phasors
+    L = conductor_indicator(problem, fixed)
+    admittance = copies * (L.T @ (A @ unit))
+    currents = copies * (L.T @ (A @ u))
+    loss = 0.5 * float(np.real(phasors @ np.conj(currents)))
+
+    E_re, E_im = vertex_field(problem, u.real), vertex_field(problem, u.imag)
+    E_peak = peak_over_period(E_re, E_im)
+    mean_square = 0.5 * ((E_re**2).sum(axis=-1) + (E_im**2).sum(axis=-1)).mean(axis=1)  # time average of |E|^2
+    loss_density = sigma_eff * mean_square
+    peaks = region_peaks(problem, E_peak)
+    electrostatic = region_peaks(problem, electrostatic_E_magnitude)
+    losses = region_quadratic(problem, sigma_eff, u)
+    section = problem.section
+    regions = {}
+    for name, material in problem.material_of_region.items():
+        elements = section.elements_of(name)
+        strength = material.dielectric_strength
+        over = 0 if strength is None else int((E_peak[elements].max(axis=1) >= case.hotspot_fraction * strength).sum())
+        regions[name] = RegionAC(name, material.name, peaks[name], electrostatic[name], strength,
+                                 float(sigma_eff[elements].mean()) if elements.size else 0.0,
+                                 0.5 * copies * losses[name], over)
+    notes = []
+    lossless = sorted({m.name for m in problem.material_of_region.values()
+                       if m.conductivity is None and m.loss_tangent is None})
+    if lossless:
+        notes.append(f"no conductivity or loss tangent for {', '.join(lossless)}: taken as lossless")
+    return ACResult(settings.frequency, u, E_peak, loss_density, tuple(c.name for c in fixed), phasors, admittance,
+                    currents, regions, loss, float(sum(r.loss for r in regions.values())), tuple(notes))
