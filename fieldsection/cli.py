@@ -118,6 +118,10 @@ def _summary(result, folder: Path) -> None:
             f", ±{cert.relative_error:.1e}]" if cert.relative_error is not None else "]")
         print(f"peak |E| in {peak.region} ({peak.material}): {peak.peak_E * 1e-6:.4g} kV/mm{share}{status}")
     print(f"hotspots at >= {100 * result.case.hotspot_fraction:.0f} % of strength: {len(result.hotspots.hotspots)}")
+    if result.conduction is not None:
+        from .analysis_report import summary_lines
+
+        print("\n".join(summary_lines(result)))
     print("a design aid, not a certification: margins and partial-discharge tests remain the designer's duty")
 
 

@@ -80,6 +80,10 @@ def write_report(
                 ("bound_charge.png", "Bound surface charge density on material faces",
                  lambda p: fig.plot_bound_charge(result.problem, result.charges, p)),
             ]
+            if result.conduction is not None:  # the DC or AC analysis's |E| and loss density
+                from .analysis_report import analysis_figures
+
+                plots += analysis_figures(result)
             try:
                 for name, caption, draw in plots:
                     if on_step:

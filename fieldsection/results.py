@@ -111,6 +111,10 @@ def _refinement(result: SectionResult) -> dict[str, Any]:
 def build_results(result: SectionResult) -> dict[str, Any]:
     """Every number of a run; for a body of revolution the per-metre keys become whole-body ones."""
     results = _build(result)
+    if result.conduction is not None:  # a DC or AC analysis ran beside the electrostatic one
+        from .analysis_report import analysis_results
+
+        results["analysis"] = analysis_results(result)
     if result.case.model == "planar":
         return results
     return _whole_body(results)

@@ -1,0 +1,228 @@
+"""Reporting the DC or AC analysis: the "analysis" block of results.json, two figures, CLI summary lines.
+
+Engineers' units at this edge only: kV/mm, uC/m^2, pF/m; conductances, currents and losses in SI
+(S/m, A/m, W/m), labelled in every key. ``results.build_results`` renames the "_per_m" keys for an
+axisymmetric model (whole-body values).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+
+from .analysis import KINDS
+from .conduction_dc import DIFFERS_FACTOR, DCResult
+from .harmonic_ac import ACResult
+
+PEAK_NOTE = ("largest value at the element vertices of this analysis's solution on the electrostatic analysis's "
+             "last mesh; not recovered and not certified (compare with the electrostatic peaks, which are)")
+
+
+def _num(value: float | None, scale: float = 1.0) -> float | None:
+    if value is None or not math.isfinite(value):
+        return None
+    return float(value) * scale
+
+
+def _materials(problem) -> list[dict[str, Any]]:
+    return [
+        {
+            "region": region,
+            "material": m.name,
+            "conductivity_S_per_m": m.conductivity,
+            "conductivity_alpha_per_K": m.conductivity_alpha,
+            "conductivity_beta_mm_per_kV": m.conductivity_beta * 1e6,
+            "conductivity_reference_temperature_degC": m.conductivity_reference_temperature,
+            "dc_strength_kV_per_mm": _num(m.dc_strength, 1e-6),
+            "loss_tangent": m.loss_tangent,
+        }
+        for region, m in problem.material_of_region.items()
+    ]
+
+
+def analysis_results(result) -> dict[str, Any]:
+    """The "analysis" block of results.json for a DC or AC run."""
+    extra = result.conduction
+    if isinstance(extra, DCResult):
+        return _dc(result, extra)
+    return _ac(result, extra)
+
+
+def _dc(result, dc: DCResult) -> dict[str, Any]:
+    return {
+        "kind": "dc",
+        "meaning": KINDS["dc"],
+        "mesh": "the electrostatic analysis's last mesh",
+        "conductivity_model": "sigma = sigma0 exp(alpha (T - T_ref) + beta |E|) per material",
+        "materials": _materials(result.problem),
+        "temperatures": dict(dc.temperatures),
+        "nonlinear": dc.nonlinear,
+        "method": ("Picard iterations: sigma from the last potential (at the quadrature points), one linear solve "
+                   "each, damped when the change grows; stop at the relative potential change below the tolerance"
+                   if dc.nonlinear else "one linear solve (sigma does not depend on the field)"),
+        "linear_solves": dc.iterations,
+        "tolerance": dc.tolerance if dc.nonlinear else None,
+        "last_relative_change": dc.last_change if dc.nonlinear else None,
+        "linear_solver": dc.solver,
+        "leakage_current_A_per_m": {n: float(i) for n, i in zip(dc.conductor_names, dc.currents)},
+        "conductance_conductors": list(dc.fixed_names),
+        "conductance_matrix_S_per_m": None if dc.conductance is None else dc.conductance.tolist(),
+        "joule_loss_W_per_m": dc.loss,
+        "peak_fields_note": PEAK_NOTE,
+        "peak_fields": [
+            {
+                "region": r.region,
+                "material": r.material,
+                "peak_E_kV_per_mm": r.peak_E * 1e-6,
+                "electrostatic_peak_E_kV_per_mm": r.electrostatic_peak_E * 1e-6,
+                "ratio_dc_to_electrostatic": _num(r.ratio_to_electrostatic),
+                "dc_strength_kV_per_mm": _num(r.dc_strength, 1e-6),
+                "fraction_of_dc_strength": r.utilisation,
+                "conductivity_range_S_per_m": list(r.conductivity),
+                "time_constant_eps_over_sigma_range_s": list(r.time_constant),
+                "joule_loss_W_per_m": r.joule_loss,
+            }
+            for r in dc.regions.values()
+        ],
+        "interface_free_charge": {
+            "convention": "rho_s = (D_b - D_a) . n_ab = (eps_b/sigma_b - eps_a/sigma_a) J_n, n_ab from region a to "
+                          "region b; totals for the full section",
+            "faces": [
+                {"between": [i.region_a, i.region_b], "total_C_per_m": i.free_charge,
+                 "peak_abs_rho_s_uC_per_m2": i.peak_abs_density * 1e6}
+                for i in dc.interfaces
+            ],
+        },
+        "differs_factor": DIFFERS_FACTOR,
+        "warnings": list(dc.warnings),
+    }
+
+
+def _phasor(z: complex) -> dict[str, float]:
+    return {"magnitude": float(abs(z)), "phase_deg": float(np.degrees(np.angle(z)))}
+
+
+def _ac(result, ac: ACResult) -> dict[str, Any]:
+    names = list(ac.fixed_names)
+    return {
+        "kind": "ac",
+        "meaning": KINDS["ac"],
+        "mesh": "the electrostatic analysis's last mesh",
+        "frequency_Hz": ac.frequency,
+        "convention": "electrode potentials are peak values (amplitudes) with the given phases; currents are peak "
+                      "phasors; losses are time averages, P = 1/2 Re(V I*) = V_rms^2 G; peak |E| is the largest "
+                      "over a period (the semi-major axis of the field's ellipse)",
+        "loss_model": "effective conductivity sigma + omega eps tan(delta) per material",
+        "materials": _materials(result.problem),
+        "linear_solver": ac.solver,
+        "electrode_phasors_V": {n: _phasor(z) for n, z in zip(names, ac.phasors)},
+        "electrode_currents_A_per_m": {n: _phasor(z) for n, z in zip(names, ac.currents)},
+        "conductors": names,
+        "capacitance_matrix_pF_per_m": (ac.capacitance * 1e12).tolist(),
+        "conductance_matrix_S_per_m": ac.conductance.tolist(),
+        "dielectric_loss_W_per_m": ac.loss,
+        "dielectric_loss_sum_of_regions_W_per_m": ac.loss_from_regions,
+        "peak_fields_note": PEAK_NOTE,
+        "regions": [
+            {
+                "region": r.region,
+                "material": r.material,
+                "peak_E_over_period_kV_per_mm": r.peak_E * 1e-6,
+                "electrostatic_peak_E_kV_per_mm": r.electrostatic_peak_E * 1e-6,
+                "dielectric_strength_kV_per_mm": _num(r.dielectric_strength, 1e-6),
+                "fraction_of_strength": r.utilisation,
+                "elements_at_or_above_hotspot_fraction": r.elements_over_fraction,
+                "effective_conductivity_S_per_m": r.effective_conductivity,
+                "dielectric_loss_W_per_m": r.loss,
+            }
+            for r in ac.regions.values()
+        ],
+        "notes": list(ac.notes),
+    }
+
+
+def analysis_figures(result) -> list[tuple[str, str, Callable[[Path], Path]]]:
+    """(file, caption, draw(path)) for the |E| and loss-density figures of the DC or AC analysis."""
+    extra = result.conduction
+    problem = result.problem
+    if isinstance(extra, DCResult):
+        loss = extra.conductivity * (extra.E_magnitude**2).mean(axis=1)
+        return [
+            ("dc_field.png", "DC steady state: peak |E| per element (the field the conductivities set)",
+             lambda p: plot_element_values(problem, extra.E_magnitude.max(axis=1) * 1e-6, p, "|E| (kV/mm)",
+                                           "DC steady state: peak |E| per element")),
+            ("dc_loss.png", "DC steady state: Joule loss density sigma |E|^2 per element",
+             lambda p: plot_element_values(problem, loss, p, "loss density (W/m³)",
+                                           "DC steady state: loss density", logarithmic=True)),
+        ]
+    return [
+        ("ac_field.png", f"AC at {extra.frequency:g} Hz: peak |E| over a period per element",
+         lambda p: plot_element_values(problem, extra.E_peak.max(axis=1) * 1e-6, p, "|E| (kV/mm)",
+                                       f"AC at {extra.frequency:g} Hz: peak |E| over a period")),
+        ("ac_loss.png", f"AC at {extra.frequency:g} Hz: time-averaged dielectric loss density per element",
+         lambda p: plot_element_values(problem, extra.loss_density, p, "loss density (W/m³)",
+                                       f"AC at {extra.frequency:g} Hz: dielectric loss density", logarithmic=True)),
+    ]
+
+
+def plot_element_values(problem, values: np.ndarray, path: str | os.PathLike, label: str, title: str,
+                        logarithmic: bool = False) -> Path:
+    """One value per dielectric element, conductors grey; a logarithmic scale for values spanning decades."""
+    from matplotlib.colors import ListedColormap, LogNorm, Normalize
+
+    from . import figures as fig_module
+
+    dielectric = problem.dielectric & ~problem.section.exterior
+    shown = values[dielectric]
+    positive = shown[shown > 0]
+    if logarithmic and positive.size and positive.max() > 1e3 * positive.min():
+        norm = LogNorm(max(positive.min(), positive.max() * 1e-8), positive.max())
+        values = np.maximum(values, norm.vmin)
+    else:
+        norm = Normalize(0.0, float(shown.max()) if shown.size and shown.max() > 0 else 1.0)
+    fig, ax = fig_module._new_figure(problem)
+    grey = ListedColormap([fig_module._CONDUCTOR_FILL])
+    nelements = problem.section.mesh.nelements
+    if fig_module._big(problem):
+        binned = fig_module._binned(problem)
+        shading = binned.draw(ax, values, only=dielectric, cmap="YlOrRd", norm=norm)
+        if (~problem.dielectric).any():
+            binned.draw(ax, np.zeros(nelements), only=~problem.dielectric, cmap=grey)
+    else:
+        shading = ax.tripcolor(fig_module._triangulation(problem, mask=~dielectric), facecolors=values, cmap="YlOrRd",
+                               norm=norm)
+        if (~problem.dielectric).any():
+            ax.tripcolor(fig_module._triangulation(problem, mask=problem.dielectric), facecolors=np.zeros(nelements),
+                         cmap=grey)
+    fig_module._draw_outline(ax, problem, width=0.5)
+    fig.colorbar(shading, ax=ax, shrink=0.85).set_label(label)
+    top = float(shown.max()) if shown.size else 0.0
+    ax.set_title(f"{title}, max {top:.3g}", fontsize=10)
+    return fig_module._save(fig, path)
+
+
+def summary_lines(result) -> list[str]:
+    """What the CLI prints about the DC or AC analysis."""
+    extra = result.conduction
+    lines = []
+    if isinstance(extra, DCResult):
+        how = (f"Picard, {extra.iterations} linear solves to a relative change of {extra.last_change:.1e}"
+               if extra.nonlinear else "linear")
+        lines.append(f"analysis: DC steady conduction ({how})")
+        for name, current in zip(extra.conductor_names, extra.currents):
+            lines.append(f"  leakage current out of {name}: {current:.4g} A/m")
+        for r in extra.regions.values():
+            share = "" if r.utilisation is None else f", {100 * r.utilisation:.1f} % of DC strength"
+            lines.append(f"  DC peak |E| in {r.region}: {r.peak_E * 1e-6:.4g} kV/mm (electrostatic "
+                         f"{r.electrostatic_peak_E * 1e-6:.4g}){share}")
+        lines += [f"  warning: {w}" for w in extra.warnings]
+    else:
+        lines.append(f"analysis: AC at {extra.frequency:g} Hz; dielectric loss {extra.loss:.4g} W/m (time average, "
+                     "potentials as peak values)")
+        for r in extra.regions.values():
+            lines.append(f"  peak |E| over a period in {r.region}: {r.peak_E * 1e-6:.4g} kV/mm, loss {r.loss:.4g} W/m")
+    return lines
