@@ -39,6 +39,7 @@ def _materials(problem) -> list[dict[str, Any]]:
             "conductivity_reference_temperature_degC": m.conductivity_reference_temperature,
             "dc_strength_kV_per_mm": _num(m.dc_strength, 1e-6),
             "loss_tangent": m.loss_tangent,
+            "conductivity_source": m.conductivity_source,
         }
         for region, m in problem.material_of_region.items()
     ]

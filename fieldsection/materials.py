@@ -38,6 +38,7 @@ class Material:
     conductivity_beta: float = 0.0
     conductivity_reference_temperature: float = 20.0  # degC
     dc_strength: float | None = None  # V/m, the strength under steady DC stress; None: unknown
+    conductivity_source: str = ""  # where the conduction values come from
 
     def __post_init__(self) -> None:
         er = self.relative_permittivity
@@ -95,6 +96,7 @@ _ALLOWED_KEYS = {
     "conductivity_reference_temperature_degC",
     "dc_strength",
     "dc_strength_kV_per_mm",
+    "conductivity_source",
 }
 _PASCHEN_KEYS = ("paschen_A_per_kPa_cm", "paschen_B_V_per_kPa_cm", "secondary_emission")
 
@@ -170,6 +172,12 @@ def _conduction(entry: Mapping[str, Any], where: str) -> dict[str, Any]:
         out["dc_strength"] = to_si(entry["dc_strength"], "field", f"{where}.dc_strength")
     elif "dc_strength_kV_per_mm" in entry:
         out["dc_strength"] = number("dc_strength_kV_per_mm") * 1e6
+    if "conductivity_source" in entry:
+        if not isinstance(entry["conductivity_source"], str):
+            raise MaterialError(f"{where}: conductivity_source must be a string, got {entry['conductivity_source']!r}")
+        out["conductivity_source"] = entry["conductivity_source"]
+    elif "conductivity" in out:
+        out["conductivity_source"] = "defined in the case file"
     return out
 
 
