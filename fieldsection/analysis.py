@@ -213,13 +213,14 @@ def check_against_case(settings: AnalysisSettings, regions: Mapping[str, Any], e
                     f"under [materials.{material.name}]")
 
 
-def run_analysis(case: Any, problem: Any, electrostatic_E_magnitude: np.ndarray) -> Any:
+def run_analysis(case: Any, problem: Any, electrostatic_E_magnitude: np.ndarray,
+                 electrostatic_potential: np.ndarray) -> Any:
     """The DC or AC result for ``case`` on the electrostatic problem's mesh; None for an electrostatic case."""
     kind = case.analysis.kind
     if kind == "dc":
         from .conduction_dc import analyse_dc
 
-        return analyse_dc(case, problem, electrostatic_E_magnitude)
+        return analyse_dc(case, problem, electrostatic_E_magnitude, electrostatic_potential)
     if kind == "ac":
         from .harmonic_ac import analyse_ac
 

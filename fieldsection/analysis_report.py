@@ -73,6 +73,11 @@ def _dc(result, dc: DCResult) -> dict[str, Any]:
         "conductance_conductors": list(dc.fixed_names),
         "conductance_matrix_S_per_m": None if dc.conductance is None else dc.conductance.tolist(),
         "joule_loss_W_per_m": dc.loss,
+        "relaxation_time_s": dc.relaxation_time,
+        "relaxation_time_meaning": "d.K_eps.d / d.K_sigma.d for d = electrostatic minus DC potential: the time constant "
+                                   "of the change from the capacitive to the resistive field after a voltage step "
+                                   "(exact for layers in series, the Maxwell-Wagner time; a weighted mean of the "
+                                   "excited modes otherwise); null when the two distributions coincide",
         "peak_fields_note": PEAK_NOTE,
         "peak_fields": [
             {

@@ -89,6 +89,10 @@ class DCResult:
     regions: Mapping[str, RegionDC]
     interfaces: tuple[InterfaceDC, ...]
     loss: float  # W/m or W, sum of V_k I_k
+    #: s, d^T K_eps d / d^T K_sigma d for d = electrostatic - DC potential: the time constant of the change from
+    #: the capacitive to the resistive distribution after a voltage step (exact when one mode is excited, as
+    #: for layers in series; a weighted mean of the excited modes' otherwise); None when the two coincide
+    relaxation_time: float | None
     warnings: tuple[str, ...]
     temperatures: Mapping[str, str]  # region -> description of its temperature
     solver: str
@@ -117,17 +121,24 @@ def _sigma_function(problem: AssembledProblem, settings: AnalysisSettings):
     if nonlinear and section.exterior.any():
         beta[section.exterior] = 0.0  # open space beyond the circle: the Kelvin image's field is not E; sigma0 there
 
-    def sigma(magnitude: np.ndarray) -> np.ndarray:
-        return base * np.exp(beta * magnitude) if nonlinear else base
+    def sigma(magnitude: np.ndarray | None) -> np.ndarray:
+        return base * np.exp(beta * magnitude) if magnitude is not None and beta.any() else base
 
     return sigma, nonlinear
 
 
-def analyse_dc(case: Case, problem: AssembledProblem, electrostatic_E_magnitude: np.ndarray) -> DCResult:
-    """The DC steady state on ``problem`` (the last electrostatic pass), compared with its field."""
+def analyse_dc(case: Case, problem: AssembledProblem, electrostatic_E_magnitude: np.ndarray,
+               electrostatic_potential: np.ndarray, *, iterate: bool | None = None) -> DCResult:
+    """The DC steady state on ``problem`` (the last electrostatic pass), compared with its solution.
+
+    ``iterate``: Picard iterations (True) or one linear solve (False); None: iterate when a conductivity
+    depends on the field.
+    """
     settings = case.analysis
     copies = problem.symmetry_copies
     sigma_of, nonlinear = _sigma_function(problem, settings)
+    if iterate is not None:
+        nonlinear = iterate
     potentials = np.array([c.potential for c in problem.fixed])
     scale = max(float(np.abs(potentials).max()), 1e-300)
     conductance = None
@@ -213,9 +224,14 @@ def analyse_dc(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
                     for name in problem.material_of_region}
     fixed_index = [i for i, c in enumerate(every) if not c.floating]
     loss = float(np.dot(potentials, currents[fixed_index]))
+    d = electrostatic_potential - u
+    resistive = float(d @ (K @ d))
+    relaxation = None
+    if resistive > 1e-20 * float(u @ (K @ u)):
+        relaxation = float(d @ (problem.stiffness @ d)) / resistive
     return DCResult(u, E, magnitude, sigma_element, nonlinear, iterations, change if nonlinear else 0.0,
                     settings.tolerance, tuple(c.name for c in every), currents, conductance,
-                    tuple(c.name for c in dc_problem.fixed), regions, interfaces, loss, tuple(warnings),
+                    tuple(c.name for c in dc_problem.fixed), regions, interfaces, loss, relaxation, tuple(warnings),
                     temperatures, solver_name)
 
 

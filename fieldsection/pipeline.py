@@ -155,7 +155,8 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
     corona = stage("corona", lambda: screen_corona(problem, last.peak_search_field, case.gas_pressure))
     conduction = None
     if case.analysis.kind != "electrostatic":
-        conduction = stage(case.analysis.kind, lambda: run_analysis(case, problem, last.fields.E_magnitude))
+        conduction = stage(case.analysis.kind, lambda: run_analysis(case, problem, last.fields.E_magnitude,
+                                                                             last.solution.potential))
     computed = {f.name: getattr(last, f.name) for f in dataclass_fields(_Computed)}
     return SectionResult(**computed, case=case, hotspots=hotspots, gas_gaps=gas_gaps, stage_seconds=seconds,
                          passes=tuple(p.record for p in passes), certificates=certificates,

@@ -1,0 +1,232 @@
+"""DC steady conduction: -div(sigma grad V) = 0, checked against closed forms.
+
+Sources (each beside its check):
+- Leakage conductance of a coaxial insulation, G = 2 pi sigma / ln(b/a) per metre: the electrostatic
+  C = 2 pi eps / ln(b/a) with eps -> sigma (the same Laplace problem; D. M. Pozar, Microwave Engineering,
+  4th ed., Table 2.1, coaxial line G = 2 pi omega eps'' / ln(b/a); from memory).
+- Layers in series under DC: the current is continuous, so E_i = J / sigma_i, and in a coax
+  E_i(r) = V / (sigma_i r sum_k ln(r_k+1/r_k)/sigma_k) (elementary; HVDC cable texts, e.g. Kuffel,
+  Zaengl & Kuffel, High Voltage Engineering, 2nd ed. 2000, ch. on DC stress; from memory).
+- Maxwell-Wagner interface charge rho_s = (eps2/sigma2 - eps1/sigma1) J_n and the relaxation time
+  of two layers in series, tau = (eps1 d2 + eps2 d1)/(sigma1 d2 + sigma2 d1) (standard result, e.g.
+  A. von Hippel, Dielectrics and Waves, Wiley 1954, Maxwell-Wagner two-layer condenser; from memory).
+- sigma = sigma0 exp(beta E) in a coax: the radial current I per metre is the same at every radius,
+  I = 2 pi r sigma0 exp(beta E) E, so beta E(r) = W(beta I / (2 pi r sigma0)) with Lambert's W
+  (scipy.special.lambertw), and V = integral of E dr (scipy.integrate.quad); I from V by brentq.
+  A semi-analytic reference computed with general-purpose scipy routines, independent of the FE code.
+"""
+
+import math
+
+import numpy as np
+import pytest
+from scipy.constants import epsilon_0
+from scipy.integrate import quad
+from scipy.optimize import brentq
+from scipy.special import lambertw
+
+from conftest import GEOMETRIES
+from fieldsection import BuilderGeometry, Case, Material, MeshSettings, ScriptGeometry, analyse
+from fieldsection.analysis import AnalysisSettings
+from fieldsection.case import SINGLE_MESH
+from fieldsection.conduction_dc import analyse_dc
+from test_plates_and_hotspots import plates_builder
+
+DC = AnalysisSettings(kind="dc")
+
+
+def coax_case(script, regions, parameters, analysis=DC, voltage=1000.0, order=2):
+    return Case(name="coax", geometry=ScriptGeometry(GEOMETRIES / script, parameters, 1e-3), regions=regions,
+                electrodes={"inner": voltage, "outer": 0.0}, mesh=MeshSettings(element_order=order),
+                refinement=SINGLE_MESH, analysis=analysis)
+
+
+A, B = 1e-3, 3e-3  # coaxial.geo
+
+
+def test_leakage_conductance_of_a_coax():
+    sigma = 2e-13
+    result = analyse(coax_case("coaxial.geo", {"insulation": Material("x", 2.3, None, conductivity=sigma)},
+                               {"lc": 0.2}))
+    dc = result.conduction
+    g = 2 * math.pi * sigma / math.log(B / A)  # Pozar, Table 2.1 (from memory)
+    assert dc.conductance[0, 0] == pytest.approx(g, rel=1e-4)
+    assert dc.currents[0] == pytest.approx(g * 1000.0, rel=1e-4)
+    assert dc.loss == pytest.approx(g * 1000.0**2, rel=1e-4)  # Joule loss V I
+    assert dc.regions["insulation"].joule_loss == pytest.approx(g * 1000.0**2, rel=1e-4)
+    # one material: the DC distribution is the electrostatic one, and no relaxation happens
+    region = dc.regions["insulation"]
+    assert region.ratio_to_electrostatic == pytest.approx(1.0, rel=1e-9)
+    assert dc.relaxation_time is None
+    assert not any("differs strongly" in w for w in dc.warnings)
+    assert region.time_constant[0] == pytest.approx(epsilon_0 * 2.3 / sigma, rel=1e-12)  # eps / sigma
+    assert dc.iterations == 1 and not dc.nonlinear
+
+
+R1, R2, R3 = 1e-3, 2e-3, 4e-3  # coaxial_two_layer.geo
+ER1, ER2, S1, S2 = 4.0, 2.0, 1e-12, 4e-12
+
+
+@pytest.fixture(scope="module")
+def two_layer():
+    regions = {"inner_layer": Material("inner", ER1, 20e6, conductivity=S1, dc_strength=40e6),
+               "outer_layer": Material("outer", ER2, 20e6, conductivity=S2)}
+    return analyse(coax_case("coaxial_two_layer.geo", regions, {"lc": 0.1}))
+
+
+def test_two_layer_coax_field_follows_the_conductivities(two_layer):
+    dc = two_layer.conduction
+    V = 1000.0
+    resistance = math.log(R2 / R1) / S1 + math.log(R3 / R2) / S2  # 2 pi x resistance per metre
+    # E_i(r) = V / (sigma_i r sum_k ln(r_k+1/r_k)/sigma_k), largest at each layer's inner radius (closed form)
+    e_inner = V / (S1 * R1 * resistance)
+    e_outer = V / (S2 * R2 * resistance)
+    assert dc.regions["inner_layer"].peak_E == pytest.approx(e_inner, rel=1e-2)
+    assert dc.regions["outer_layer"].peak_E == pytest.approx(e_outer, rel=1e-2)
+    assert dc.currents[0] == pytest.approx(2 * math.pi * V / resistance, rel=1e-4)
+    # the electrostatic peaks are those of the permittivities (480.9 kV/m in both layers at 1 kV, our
+    # reference notes' worked example): the DC stress moved into the inner layer, so the warning is given
+    assert dc.regions["inner_layer"].electrostatic_peak_E == pytest.approx(480.89835e3, rel=1e-2)
+    assert any("differs strongly" in w for w in dc.warnings)
+    assert dc.regions["inner_layer"].utilisation == pytest.approx(e_inner / 40e6, rel=1e-2)
+    assert dc.regions["outer_layer"].utilisation is None  # no DC strength given
+    assert any("no DC strength known for outer_layer" in w for w in dc.warnings)
+
+
+def test_two_layer_coax_interface_charge_and_relaxation_time(two_layer):
+    dc = two_layer.conduction
+    V = 1000.0
+    resistance = math.log(R2 / R1) / S1 + math.log(R3 / R2) / S2
+    current = 2 * math.pi * V / resistance  # A/m, outwards
+    (face,) = dc.interfaces
+    assert {face.region_a, face.region_b} == {"inner_layer", "outer_layer"}
+    # rho_s = (eps_b/sigma_b - eps_a/sigma_a) J_n with n from a to b (Maxwell-Wagner, von Hippel; from memory);
+    # with a = inner layer J_n is the outward current density; naming the sides the other way round flips
+    # both factors, so the total is the same either way
+    ratio = epsilon_0 * (ER2 / S2 - ER1 / S1)
+    expected_total = ratio * current
+    assert face.free_charge == pytest.approx(expected_total, rel=2e-3)
+    assert face.peak_abs_density == pytest.approx(abs(ratio) * current / (2 * math.pi * R2), rel=2e-2)
+    # series layers: tau = (C1 + C2) / (G1 + G2), the coaxial form of (eps1 d2 + eps2 d1)/(sigma1 d2 + sigma2 d1)
+    c1, c2 = ER1 / math.log(R2 / R1), ER2 / math.log(R3 / R2)
+    g1, g2 = S1 / math.log(R2 / R1), S2 / math.log(R3 / R2)
+    assert dc.relaxation_time == pytest.approx(epsilon_0 * (c1 + c2) / (g1 + g2), rel=2e-3)
+
+
+W = 10e-3
+
+
+def plates(layers, materials, analysis=DC, order=1):
+    case = Case("plates", BuilderGeometry(plates_builder(layers), 1e-3), materials, {"top": 1000.0, "bottom": 0.0},
+                outer_boundary="insulated", mesh=MeshSettings(element_order=order), refinement=SINGLE_MESH,
+                analysis=analysis)
+    return analyse(case)
+
+
+@pytest.mark.parametrize("order", [1, 2])
+def test_maxwell_wagner_plates(order):
+    d1, d2, e1, e2, s1, s2 = 1e-3, 2e-3, 2.0, 5.0, 3e-14, 1e-15
+    result = plates([("lower", 1.0), ("upper", 2.0)],
+                    {"lower": Material("a", e1, None, conductivity=s1), "upper": Material("b", e2, None, conductivity=s2)},
+                    order=order)
+    dc = result.conduction
+    j = 1000.0 / (d1 / s1 + d2 / s2)  # downwards, from the top plate at 1 kV
+    (face,) = dc.interfaces
+    # rho_s = (eps_upper/sigma_upper - eps_lower/sigma_lower) J_n, n upwards (lower -> upper): J_n = -j
+    rho = epsilon_0 * (e2 / s2 - e1 / s1) * (-j)
+    sign = 1 if (face.region_a, face.region_b) == ("lower", "upper") else -1
+    assert sign * face.free_charge == pytest.approx(rho * W, rel=1e-9)  # uniform fields: exact on any mesh
+    assert np.allclose(sign * face.density, rho, rtol=1e-8)
+    tau = epsilon_0 * (e1 * d2 + e2 * d1) / (s1 * d2 + s2 * d1)  # Maxwell-Wagner relaxation time (von Hippel)
+    assert dc.relaxation_time == pytest.approx(tau, rel=1e-9)
+    assert dc.regions["lower"].peak_E == pytest.approx(j / s1, rel=1e-9)
+    assert dc.regions["upper"].peak_E == pytest.approx(j / s2, rel=1e-9)
+
+
+def test_conductivities_in_the_ratio_of_the_permittivities_leave_the_field_unchanged():
+    # sigma proportional to eps: the same Laplace problem, so no interface charge and no relaxation (elementary)
+    result = plates([("lower", 1.0), ("upper", 2.0)],
+                    {"lower": Material("a", 2.0, None, conductivity=2e-14),
+                     "upper": Material("b", 5.0, None, conductivity=5e-14)})
+    dc = result.conduction
+    (face,) = dc.interfaces
+    assert abs(face.free_charge) < 1e-12 * epsilon_0 * 1000.0 / 1e-3 * W
+    assert dc.relaxation_time is None
+    assert not any("differs strongly" in w for w in dc.warnings)
+
+
+SIGMA0, BETA, V_NL = 1e-12, 2e-7, 10e3  # beta = 0.2 mm/kV; beta E(a) ~ 1.7
+
+
+def field_dependent_reference():
+    """(I per metre, E(a)) for sigma = sigma0 exp(beta E) in the coax a = 1, b = 3 mm at V_NL (Lambert W)."""
+    def field(r, current):
+        return float(lambertw(BETA * current / (2 * math.pi * r * SIGMA0)).real) / BETA
+
+    def voltage(current):
+        return quad(field, A, B, args=(current,), epsabs=0, epsrel=1e-12)[0]
+
+    linear = 2 * math.pi * SIGMA0 / math.log(B / A) * V_NL
+    current = brentq(lambda i: voltage(i) - V_NL, linear, 100 * linear, xtol=1e-30, rtol=1e-13)
+    return current, field(A, current)
+
+
+def test_field_dependent_conductivity_against_lambert_w():
+    material = Material("graded", 2.3, None, conductivity=SIGMA0, conductivity_beta=BETA)
+    result = analyse(coax_case("coaxial.geo", {"insulation": material}, {"lc": 0.1}, voltage=V_NL,
+                               analysis=AnalysisSettings(kind="dc", tolerance=1e-10)))
+    dc = result.conduction
+    current, e_a = field_dependent_reference()
+    assert dc.nonlinear and 3 <= dc.iterations <= 60 and dc.last_change <= 1e-10
+    assert dc.currents[0] == pytest.approx(current, rel=1e-5)
+    assert dc.regions["insulation"].peak_E == pytest.approx(e_a, rel=5e-3)
+    assert dc.conductance is None  # no conductance matrix for a nonlinear material
+    # the field-dependent material flattens the stress: the inner field is below the electrostatic one
+    assert dc.regions["insulation"].ratio_to_electrostatic < 0.95
+
+
+def test_picard_with_beta_zero_reproduces_the_linear_closed_form():
+    sigma = 2e-13
+    result = analyse(coax_case("coaxial.geo", {"insulation": Material("x", 2.3, None, conductivity=sigma)},
+                               {"lc": 0.2}))
+    linear = result.conduction
+    forced = analyse_dc(result.case, result.problem, result.fields.E_magnitude, result.solution.potential,
+                        iterate=True)
+    assert forced.nonlinear and forced.iterations == 2 and forced.last_change < 1e-12
+    g = 2 * math.pi * sigma / math.log(B / A)  # Pozar, Table 2.1 (from memory)
+    assert forced.currents[0] == pytest.approx(g * 1000.0, rel=1e-4)
+    assert forced.currents[0] == pytest.approx(linear.currents[0], rel=1e-12)
+    assert np.allclose(forced.potential, linear.potential, rtol=0, atol=1e-9 * 1000.0)
+
+
+def test_temperature_raises_the_conductivity_by_exp_alpha_dt():
+    # sigma0 exp(alpha (T - T_ref)) (Jeroense & Morshuis 1998, the form; from memory): a uniform 30 K rise
+    # multiplies the leakage current by exp(30 alpha) exactly
+    from fieldsection.analysis import TemperatureProfile
+    material = Material("x", 2.3, None, conductivity=1e-15, conductivity_alpha=0.05)
+    base = analyse(coax_case("coaxial.geo", {"insulation": material}, {"lc": 0.3}))
+    hot = analyse(coax_case("coaxial.geo", {"insulation": material}, {"lc": 0.3},
+                            analysis=AnalysisSettings(kind="dc", temperatures={"insulation": TemperatureProfile(50.0)})))
+    assert hot.conduction.currents[0] / base.conduction.currents[0] == pytest.approx(math.exp(0.05 * 30), rel=1e-10)
+
+
+def test_radial_temperature_profile_in_a_cable():
+    # a hot conductor: T falls from 70 degC at r = a to 40 degC at r = b, linear in r. sigma rises inward by
+    # exp(alpha dT): the DC stress moves outwards ("stress inversion", the HVDC cable effect). Reference:
+    # the same current through every radius, E(r) = I / (2 pi r sigma(r)), V = integral of E dr (quad).
+    from fieldsection.analysis import TemperatureProfile
+    alpha = 0.08
+    material = Material("x", 2.3, None, conductivity=1e-15, conductivity_alpha=alpha)
+    profile = TemperatureProfile(70.0, 40.0, (0.0, 0.0), (B, 0.0), "radius", A)
+    result = analyse(coax_case("coaxial.geo", {"insulation": material}, {"lc": 0.1},
+                               analysis=AnalysisSettings(kind="dc", temperatures={"insulation": profile})))
+
+    def sigma(r):
+        return 1e-15 * math.exp(alpha * (70.0 + (r - A) / (B - A) * (40.0 - 70.0) - 20.0))
+
+    resistance = quad(lambda r: 1 / (2 * math.pi * r * sigma(r)), A, B, epsrel=1e-12)[0]
+    current = 1000.0 / resistance
+    assert result.conduction.currents[0] == pytest.approx(current, rel=1e-3)
+    e_outer = current / (2 * math.pi * B * sigma(B))
+    assert result.conduction.regions["insulation"].peak_E == pytest.approx(e_outer, rel=2e-2)
+    assert e_outer > current / (2 * math.pi * A * sigma(A))  # the peak sits at the cold outer surface
