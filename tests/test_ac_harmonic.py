@@ -1,0 +1,116 @@
+"""AC time-harmonic, quasi-static analysis: -div((sigma + j omega eps) grad V) = 0, against closed forms.
+
+Sources (each beside its check):
+- Lossy coaxial line per metre: C = 2 pi eps / ln(b/a), G = 2 pi sigma / ln(b/a) + omega C tan(delta)
+  (D. M. Pozar, Microwave Engineering, 4th ed., Table 2.1: G = 2 pi omega eps'' / ln(b/a) with
+  eps'' = eps' tan(delta) + sigma/omega; from memory).
+- Dielectric loss per metre P = omega C V^2 tan(delta) / 2 for a peak voltage V, = omega C V_rms^2 tan(delta)
+  (the usual cable dielectric-loss formula, e.g. IEC 60287-1-1's W_d = omega C U0^2 tan(delta) with U0 in
+  RMS; from memory). fieldsection takes electrode potentials as peak values.
+- Two layers in series: at high frequency (omega eps >> sigma) the displacement current dominates and
+  the field divides by the permittivities (series capacitance, as in tests/test_two_layer_coaxial.py:
+  C = 1.0701431e-10 F/m, E(r1-) = 240.44917 kV/m, E(r1+) = 480.89835 kV/m at 1 kV); at low frequency
+  (omega eps << sigma) by the conductivities, G = 2 pi / sum ln(r_k+1/r_k)/sigma_k (elementary).
+- The peak over a period of |Re((a + j b) e^{j w t})| is checked against sampling the period (numpy).
+"""
+
+import math
+
+import numpy as np
+import pytest
+from scipy.constants import epsilon_0
+
+from conftest import GEOMETRIES
+from fieldsection import Case, Material, MeshSettings, ScriptGeometry, analyse
+from fieldsection.analysis import AnalysisSettings
+from fieldsection.case import SINGLE_MESH
+from fieldsection.harmonic_ac import peak_over_period
+
+A, B = 1e-3, 3e-3  # coaxial.geo
+
+
+def coax(script, regions, parameters, analysis, voltage=1000.0, order=2):
+    return analyse(Case(name="coax", geometry=ScriptGeometry(GEOMETRIES / script, parameters, 1e-3), regions=regions,
+                        electrodes={"inner": voltage, "outer": 0.0}, mesh=MeshSettings(element_order=order),
+                        refinement=SINGLE_MESH, analysis=analysis))
+
+
+def test_lossy_coax_admittance_and_loss():
+    er, tan_d, sigma, f, V = 2.3, 0.01, 1e-9, 50.0, 1000.0
+    result = coax("coaxial.geo", {"insulation": Material("x", er, 20e6, loss_tangent=tan_d, conductivity=sigma)},
+                  {"lc": 0.2}, AnalysisSettings(kind="ac", frequency=f))
+    ac = result.conduction
+    omega = 2 * math.pi * f
+    c = 2 * math.pi * epsilon_0 * er / math.log(B / A)
+    g = 2 * math.pi * sigma / math.log(B / A) + omega * c * tan_d  # Pozar, Table 2.1 (from memory)
+    assert ac.capacitance[0, 0] == pytest.approx(c, rel=1e-4)
+    assert ac.conductance[0, 0] == pytest.approx(g, rel=1e-4)
+    assert ac.capacitance[0, 1] == pytest.approx(-c, rel=1e-4)
+    assert ac.loss == pytest.approx(0.5 * g * V**2, rel=1e-4)  # time average at peak V: V_rms^2 G
+    assert ac.loss_from_regions == pytest.approx(ac.loss, rel=1e-9)
+    # the peak field of a single phase is the electrostatic one at the same (peak) potentials
+    region = ac.regions["insulation"]
+    assert region.peak_E == pytest.approx(region.electrostatic_peak_E, rel=1e-9)
+    assert region.peak_E == pytest.approx(V / (A * math.log(B / A)), rel=1e-2)
+
+
+def test_loss_tangent_alone_gives_omega_c_v2_tan_delta_over_2():
+    er, tan_d, f, V = 2.5, 0.001, 50.0, 10e3  # XLPE-like values (IEC 60287-1-1; from memory)
+    result = coax("coaxial.geo", {"insulation": Material("x", er, None, loss_tangent=tan_d)}, {"lc": 0.2},
+                  AnalysisSettings(kind="ac", frequency=f), voltage=V)
+    c = 2 * math.pi * epsilon_0 * er / math.log(B / A)
+    expected = 2 * math.pi * f * c * V**2 * tan_d / 2  # peak-voltage form of omega C U^2 tan(delta)
+    assert result.conduction.loss == pytest.approx(expected, rel=1e-4)
+    # the current leads the voltage by 90 degrees minus the loss angle delta
+    current = result.conduction.currents[0]
+    assert math.degrees(np.angle(current)) == pytest.approx(90.0 - math.degrees(math.atan(tan_d)), abs=1e-6)
+
+
+R1, R2, R3 = 1e-3, 2e-3, 4e-3  # coaxial_two_layer.geo
+ER1, ER2, S1, S2 = 4.0, 2.0, 1e-10, 4e-10
+
+
+def two_layer(frequency):
+    regions = {"inner_layer": Material("inner", ER1, None, conductivity=S1),
+               "outer_layer": Material("outer", ER2, None, conductivity=S2)}
+    return coax("coaxial_two_layer.geo", regions, {"lc": 0.1}, AnalysisSettings(kind="ac", frequency=frequency))
+
+
+def test_two_layer_coax_at_high_frequency_follows_the_permittivities():
+    ac = two_layer(1e6).conduction  # omega eps ~ 2e-4 S/m >> sigma ~ 1e-10 S/m
+    c_series = 2 * math.pi * epsilon_0 / (math.log(R2 / R1) / ER1 + math.log(R3 / R2) / ER2)
+    assert c_series == pytest.approx(1.0701431e-10, rel=1e-7)  # the worked value of the module docstring
+    assert ac.capacitance[0, 0] == pytest.approx(c_series, rel=1e-3)
+    # er1 a = er2 r1 here: both layers peak at 480.9 kV/m (worked example)
+    assert ac.regions["inner_layer"].peak_E == pytest.approx(480.89835e3, rel=1e-2)
+    assert ac.regions["outer_layer"].peak_E == pytest.approx(480.89835e3, rel=1e-2)
+
+
+def test_two_layer_coax_at_low_frequency_follows_the_conductivities():
+    ac = two_layer(1e-6).conduction  # omega eps ~ 2e-16 S/m << sigma
+    resistance = math.log(R2 / R1) / S1 + math.log(R3 / R2) / S2
+    assert ac.conductance[0, 0] == pytest.approx(2 * math.pi / resistance, rel=1e-4)
+    assert ac.regions["inner_layer"].peak_E == pytest.approx(1000.0 / (S1 * R1 * resistance), rel=1e-2)
+    assert ac.regions["outer_layer"].peak_E == pytest.approx(1000.0 / (S2 * R2 * resistance), rel=1e-2)
+
+
+def test_phase_of_the_electrode_shifts_the_current():
+    result = coax("coaxial.geo", {"insulation": Material("x", 2.3, None)}, {"lc": 0.3},
+                  AnalysisSettings(kind="ac", frequency=50.0, phases_deg={"inner": -120.0}))
+    ac = result.conduction
+    assert math.degrees(np.angle(ac.phasors[0])) == pytest.approx(-120.0, abs=1e-9)
+    # lossless: a purely capacitive current, 90 degrees ahead of its voltage, and no loss
+    assert math.degrees(np.angle(ac.currents[0])) == pytest.approx(-30.0, abs=1e-6)
+    assert abs(ac.loss) < 1e-12 * abs(ac.currents[0]) * 1000.0
+    assert any("lossless" in n for n in ac.notes)
+
+
+def test_peak_over_a_period_against_sampling():
+    rng = np.random.default_rng(3)
+    a, b = rng.normal(size=(50, 2)), rng.normal(size=(50, 2))
+    t = np.linspace(0, 2 * np.pi, 20001)
+    sampled = np.hypot(*(a[:, :, None] * np.cos(t) - b[:, :, None] * np.sin(t)).transpose(1, 0, 2)).max(axis=1)
+    assert np.allclose(peak_over_period(a, b), sampled, rtol=1e-7)
+    # a circularly rotating field keeps its magnitude; a linear one peaks at its amplitude
+    assert peak_over_period(np.array([1.0, 0.0]), np.array([0.0, 1.0])) == pytest.approx(1.0, rel=1e-12)
+    assert peak_over_period(np.array([3.0, 4.0]), np.array([0.0, 0.0])) == pytest.approx(5.0, rel=1e-12)
