@@ -114,3 +114,53 @@ def test_peak_over_a_period_against_sampling():
     # a circularly rotating field keeps its magnitude; a linear one peaks at its amplitude
     assert peak_over_period(np.array([1.0, 0.0]), np.array([0.0, 1.0])) == pytest.approx(1.0, rel=1e-12)
     assert peak_over_period(np.array([3.0, 4.0]), np.array([0.0, 0.0])) == pytest.approx(5.0, rel=1e-12)
+
+
+# ---------------------------------------------------------------- the CLI, the report, and bad input
+import re  # noqa: E402
+
+from test_bad_input import PLATES_CASE, run_expecting_error, write_case  # noqa: E402
+
+AC_PLATES = PLATES_CASE + '\n[analysis]\nkind = "ac"\nfrequency = "50 Hz"\n'
+
+
+def test_the_ac_case_runs_and_reports(tmp_path, capsys):
+    import json
+
+    from fieldsection.cli import main
+    reports = tmp_path / "reports"
+    assert main(["run", str(write_case(tmp_path, AC_PLATES)), "--reports", str(reports), "--quiet"]) == 0
+    folder = reports / "plates"
+    results = json.loads((folder / "results.json").read_text())
+    ac = results["analysis"]
+    assert ac["kind"] == "ac" and ac["frequency_Hz"] == 50.0
+    # PTFE, 1 mm gap, 10 mm wide, insulated sides: C = eps0 er w / d (parallel plates, exact here), and the
+    # loss omega C V^2 tan(delta) / 2 at 1 kV peak (tan delta 0.0002 from the shipped table)
+    c = epsilon_0 * 2.1 * 10.0
+    assert ac["capacitance_matrix_pF_per_m"][0][0] == pytest.approx(c * 1e12, rel=1e-9)
+    assert ac["dielectric_loss_W_per_m"] == pytest.approx(2 * math.pi * 50 * c * 1e6 * 0.0002 / 2, rel=1e-9)
+    html = (folder / "report.html").read_text()
+    assert "Analysis: AC time-harmonic at 50 Hz" in html and "AC time-harmonic analysis at 50 Hz" in html
+    assert (folder / "ac_field.png").is_file() and (folder / "ac_loss.png").is_file()
+
+
+@pytest.mark.parametrize(
+    "old, new, expected",
+    [
+        ('frequency = "50 Hz"', '', r"analysis\.frequency: an AC analysis needs a frequency"),
+        ('frequency = "50 Hz"', 'frequency = "50 kV"', r"analysis\.frequency: '50 kV' is not a frequency"),
+        ('frequency = "50 Hz"', 'frequency = -50', r"analysis\.frequency = -50\.0 Hz: must be a positive frequency"),
+        ('frequency = "50 Hz"', 'frequency = "50 Hz"\n[analysis.phases_deg]\nlid = 120',
+         r"analysis\.phases_deg\.lid: no electrode 'lid' with a potential; electrodes: bottom, top"),
+        ('frequency = "50 Hz"', 'frequency = "50 Hz"\n[analysis.phases_deg]\ntop = "120 deg"',
+         r"analysis\.phases_deg\.top = '120 deg': must be a finite number"),
+        ('frequency = "50 Hz"', 'frequency = "50 Hz"\nphases_deg = 120',
+         r"analysis\.phases_deg must be a table of electrode = degrees"),
+        ('frequency = "50 Hz"', 'frequency = "50 Hz"\n[analysis.temperature_degC]\ngap = 60',
+         r"analysis\.temperature_degC applies to kind = \"dc\" only"),
+    ],
+)
+def test_ac_case_file_errors(tmp_path, capsys, old, new, expected):
+    assert old in AC_PLATES
+    message = run_expecting_error(tmp_path, capsys, write_case(tmp_path, AC_PLATES.replace(old, new)))
+    assert re.search(expected, message), message

@@ -17,6 +17,7 @@ Sources (each beside its check):
 """
 
 import math
+import re
 
 import numpy as np
 import pytest
@@ -230,3 +231,74 @@ def test_radial_temperature_profile_in_a_cable():
     e_outer = current / (2 * math.pi * B * sigma(B))
     assert result.conduction.regions["insulation"].peak_E == pytest.approx(e_outer, rel=2e-2)
     assert e_outer > current / (2 * math.pi * A * sigma(A))  # the peak sits at the cold outer surface
+
+
+# ---------------------------------------------------------------- bad input: exit 2, one line, no report folder
+from test_bad_input import PLATES_CASE, run_expecting_error, write_case  # noqa: E402
+
+DC_PLATES = PLATES_CASE.replace('gap = "PTFE"', 'gap = "mine"\n[materials.mine]\nrelative_permittivity = 2.1\n'
+                                'dielectric_strength_kV_per_mm = 20\nconductivity = "1e-15 S/m"') \
+    + '\n[analysis]\nkind = "dc"\n'
+
+
+def test_the_dc_base_case_runs(tmp_path, capsys):
+    # guards the error tests below, each of which changes one thing in this case
+    from fieldsection.cli import main
+    reports = tmp_path / "reports"
+    assert main(["run", str(write_case(tmp_path, DC_PLATES)), "--reports", str(reports), "--no-figures"]) == 0
+    out = capsys.readouterr().out
+    assert "analysis: DC steady conduction (linear)" in out and "leakage current out of top" in out
+    import json
+    (folder,) = reports.iterdir()
+    results = json.loads((folder / "results.json").read_text())
+    assert results["analysis"]["kind"] == "dc"
+    # 1 kV over 1 mm of 1e-15 S/m: J = 1e-9 A/m^2, times the 10 mm width: 1e-11 A/m (Ohm's law)
+    assert results["analysis"]["leakage_current_A_per_m"]["top"] == pytest.approx(1e-11, rel=1e-9)
+
+
+@pytest.mark.parametrize(
+    "old, new, expected",
+    [
+        ('kind = "dc"', 'kind = "transient"', r"analysis\.kind = 'transient': use one of 'electrostatic', 'dc', 'ac'"),
+        ('kind = "dc"', 'kind = 3', r"analysis\.kind = 3: use one of"),
+        ('kind = "dc"', 'kind = "dc"\nspeed = 1', r"\[analysis\]: unknown key 'speed'; allowed keys:"),
+        ('kind = "dc"', 'kind = "dc"\nfrequency = "50 Hz"', r"analysis\.frequency / analysis\.phases_deg apply to kind = \"ac\" only"),
+        ('kind = "dc"', 'kind = "dc"\ntolerance = "tight"', r"analysis\.tolerance = 'tight': a relative change"),
+        ('kind = "dc"', 'kind = "dc"\nmax_iterations = 2.5', r"analysis\.max_iterations = 2\.5: a whole number"),
+        ('kind = "dc"', 'kind = "dc"\n[analysis.temperature_degC]\nslab = 60',
+         r"analysis\.temperature_degC\.slab: no region 'slab'; regions: gap"),
+        ('kind = "dc"', 'kind = "dc"\n[analysis.temperature_degC]\ngap = "hot"',
+         r"analysis\.temperature_degC\.gap = 'hot': must be a finite number"),
+        ('kind = "dc"', 'kind = "dc"\n[analysis.temperature_degC]\ngap = { start = ["0 mm", "0 mm"], at_start = 60 }',
+         r"analysis\.temperature_degC\.gap: a linear temperature profile needs end, at_end"),
+        ('kind = "dc"', 'kind = "dc"\n[analysis.temperature_degC]\ngap = { start = ["0 mm", "0 mm"], '
+         'end = "1 mm", at_start = 60, at_end = 50 }', r"analysis\.temperature_degC\.gap\.end = '1 mm': give a point"),
+        ('conductivity = "1e-15 S/m"', 'conductivity = "1e-15 V/m"',
+         r"materials\.mine\.conductivity: '1e-15 V/m' is not a conductivity"),
+        ('conductivity = "1e-15 S/m"', 'conductivity = [1e-15]', r"materials\.mine\.conductivity: expected a number"),
+        ('conductivity = "1e-15 S/m"', 'conductivity = -1e-15', r"material 'mine': conductivity -1e-15 S/m must be positive"),
+        ('conductivity = "1e-15 S/m"', 'conductivity = "1e-15 S/m"\nconductivity_alpha_per_K = "0.1"',
+         r"materials\.mine: conductivity_alpha_per_K must be a number, got '0\.1'"),
+        ('conductivity = "1e-15 S/m"', 'conductivity = "1e-15 S/m"\nconductivity_beta = "0.1 kV"',
+         r"materials\.mine\.conductivity_beta: '0\.1 kV' is not a inverse field"),
+        ('conductivity = "1e-15 S/m"', 'conductivity_beta = "0.1 mm/kV"',
+         r"materials\.mine: conductivity_alpha_per_K / conductivity_beta need the conductivity itself"),
+        ('conductivity = "1e-15 S/m"', 'conductivity = "1e-15 S/m"\ndc_strength_kV_per_mm = "high"',
+         r"materials\.mine: dc_strength_kV_per_mm must be a number, got 'high'"),
+        ('conductivity = "1e-15 S/m"', 'conductivity = "1e-15 S/m"\ndc_strength = "-5 kV/mm"',
+         r"material 'mine': DC strength -5000000\.0 V/m must be positive"),
+        ('gap = "mine"', 'gap = "PTFE"', r"regions\.gap: material 'PTFE' has no conductivity, which the DC analysis needs"),
+    ],
+)
+def test_dc_case_file_errors(tmp_path, capsys, old, new, expected):
+    assert old in DC_PLATES
+    case = write_case(tmp_path, DC_PLATES.replace(old, new))
+    message = run_expecting_error(tmp_path, capsys, case)
+    assert re.search(expected, message), message
+
+
+def test_iterations_that_do_not_converge_are_an_error(tmp_path, capsys):
+    case = DC_PLATES.replace('conductivity = "1e-15 S/m"', 'conductivity = "1e-15 S/m"\nconductivity_beta = "0.1 mm/kV"')
+    message = run_expecting_error(tmp_path, capsys, write_case(tmp_path, case + "max_iterations = 1\n"))
+    assert re.search(r"the DC conduction iterations \(sigma depends on the field\) did not converge: relative change "
+                     r"inf after 1 solves, wanted 1e-08; raise analysis\.max_iterations", message), message
