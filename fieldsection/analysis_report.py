@@ -63,7 +63,8 @@ def _dc(result, dc: DCResult) -> dict[str, Any]:
         "temperatures": dict(dc.temperatures),
         "nonlinear": dc.nonlinear,
         "method": ("Picard iterations: sigma from the last potential (at the quadrature points), one linear solve "
-                   "each, damped when the change grows; stop at the relative potential change below the tolerance"
+                   "each, Anderson-accelerated (depth 5); stop when a Picard step changes the potential by less than "
+                   "the tolerance times the largest electrode voltage"
                    if dc.nonlinear else "one linear solve (sigma does not depend on the field)"),
         "linear_solves": dc.iterations,
         "tolerance": dc.tolerance if dc.nonlinear else None,

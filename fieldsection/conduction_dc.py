@@ -4,8 +4,8 @@ Under a DC voltage held long enough (many times eps/sigma) the field is set by t
 not the permittivities. With sigma(T, E) = sigma0 exp(alpha (T - T_ref) + beta |E|) (the empirical form
 common for polymeric and paper HVDC insulation) the problem is nonlinear and is solved by Picard
 (fixed-point) iterations: sigma from the last potential, a linear solve, until the largest change of
-the potential is below ``tolerance`` times the largest electrode voltage. The change is damped
-(halved, down to 1/8) whenever it grows from one iteration to the next.
+the potential is below ``tolerance`` times the largest electrode voltage; the iterates are
+Anderson-accelerated (``_anderson``).
 
 Reported: the DC field and its peak per region against the material's DC strength, the leakage current
 per conductor, the conductance matrix (linear case), the free interface charge
@@ -36,8 +36,8 @@ from .solve import FactorisedSystem, solve
 #: a region whose DC peak field differs from its electrostatic one by more than this factor (either way)
 #: raises the warning that the DC field distribution differs strongly (common practice, no source)
 DIFFERS_FACTOR = 1.5
-#: Picard damping never goes below this
-LEAST_DAMPING = 0.125
+#: Anderson acceleration of the Picard iterations: how many earlier steps enter each update
+ANDERSON_DEPTH = 5
 
 
 @dataclass(frozen=True)
@@ -98,6 +98,44 @@ class DCResult:
     solver: str
 
 
+def _anderson(picard, scale: float, tolerance: float, max_iterations: int) -> tuple[np.ndarray, int, float]:
+    """Fixed point u = picard(u), Anderson-accelerated (type II, the last ``ANDERSON_DEPTH`` steps).
+
+    Returns (u, linear solves, relative change): the change is max |picard(u) - u| / ``scale`` of the last
+    step, and u is that last Picard image. H. F. Walker, P. Ni, "Anderson acceleration for fixed-point
+    iterations", SIAM J. Numer. Anal. 49(4), 2011 (from memory). The history is dropped whenever the change
+    grows tenfold over the best so far (the update then falls back to plain Picard).
+    """
+    u = picard(None)
+    solves, change, best = 1, math.inf, math.inf
+    steps_f: list[np.ndarray] = []
+    steps_g: list[np.ndarray] = []
+    last_f = last_g = None
+    while solves < max_iterations:
+        g = picard(u)
+        solves += 1
+        f = g - u
+        change = float(np.abs(f).max()) / scale
+        if change <= tolerance:
+            return g, solves, change
+        if change > 10 * best:
+            steps_f.clear()
+            steps_g.clear()
+            last_f = None
+        best = min(best, change)
+        if last_f is not None:
+            steps_f.append(f - last_f)
+            steps_g.append(g - last_g)
+            del steps_f[:-ANDERSON_DEPTH], steps_g[:-ANDERSON_DEPTH]
+        last_f, last_g = f, g
+        if steps_f:
+            gamma = np.linalg.lstsq(np.column_stack(steps_f), f, rcond=None)[0]
+            u = g - np.column_stack(steps_g) @ gamma
+        else:
+            u = g
+    return u, solves, change
+
+
 def _sigma_function(problem: AssembledProblem, settings: AnalysisSettings):
     """(sigma(|E|) at the coefficient points, is-nonlinear), with the temperatures fixed."""
     x, y = coefficient_points(problem)
@@ -151,31 +189,22 @@ def analyse_dc(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
         L = conductor_indicator(dc_problem, dc_problem.fixed)
         conductance = copies * (L.T @ (K @ solution.unit_potentials))
     else:
-        sigma = sigma_of(np.zeros(coefficient_points(problem)[0].shape))
-        u, previous_change, damping = None, math.inf, 1.0
-        change, iterations = math.inf, 0
-        while iterations < settings.max_iterations:
-            K = stiffness_with(problem, sigma)
-            dc_problem = with_stiffness(problem, K)
-            system = FactorisedSystem(dc_problem, case.solver)
+        names: list[str] = []
+
+        def picard(previous: np.ndarray | None) -> np.ndarray:
+            """The potential for sigma taken from ``previous`` (None: at zero field)."""
+            at = np.zeros(coefficient_points(problem)[0].shape) if previous is None else \
+                field_magnitude_at_points(problem, previous)
+            iterated = with_stiffness(problem, stiffness_with(problem, sigma_of(at)))
+            system = FactorisedSystem(iterated, case.solver)
             try:
-                new = system.solve(fixed_lift(dc_problem, potentials), np.zeros((len(dc_problem.floating), 1)))[:, 0]
+                names.append(system.solver_name)
+                return system.solve(fixed_lift(iterated, potentials), np.zeros((len(iterated.floating), 1)))[:, 0]
             finally:
                 system.close()
-            solver_name = system.solver_name
-            iterations += 1
-            if u is None:
-                u = new
-            else:
-                step = new - u
-                change = float(np.abs(step).max()) / scale
-                if change > previous_change:
-                    damping = max(damping / 2, LEAST_DAMPING)
-                previous_change = change
-                u = u + damping * step
-                if change <= settings.tolerance:
-                    break
-            sigma = sigma_of(field_magnitude_at_points(problem, u))
+
+        u, iterations, change = _anderson(picard, scale, settings.tolerance, settings.max_iterations)
+        solver_name = names[-1]
         if change > settings.tolerance:
             raise SolverError(
                 f"the DC conduction iterations (sigma depends on the field) did not converge: relative change "
