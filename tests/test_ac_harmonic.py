@@ -164,3 +164,22 @@ def test_ac_case_file_errors(tmp_path, capsys, old, new, expected):
     assert old in AC_PLATES
     message = run_expecting_error(tmp_path, capsys, write_case(tmp_path, AC_PLATES.replace(old, new)))
     assert re.search(expected, message), message
+
+
+def test_shipped_cable_with_grading_layer():
+    # two coaxial layers with complex admittivities y_i = sigma_i + omega eps_i tan(d_i) + j omega eps_i in
+    # series: Y = 1 / sum_i ln(r_i+1/r_i) / (2 pi y_i) per metre (elementary), loss = Re(Y) V^2 / 2 at peak V
+    from dataclasses import replace
+
+    from fieldsection.case import load_case
+    from fieldsection.materials import lookup_material
+    result = analyse(replace(load_case(GEOMETRIES / "cable_grading_ac.toml"), refinement=SINGLE_MESH))
+    ac = result.conduction
+    omega = 2 * math.pi * 50.0
+    layers = [(lookup_material("demo-grading-compound"), 5e-3, 6e-3), (lookup_material("XLPE"), 6e-3, 11e-3)]
+    impedance = sum(math.log(r2 / r1) / (2 * math.pi * ((m.conductivity or 0) + omega * epsilon_0 * m.relative_permittivity
+                                                          * (m.loss_tangent + 1j))) for m, r1, r2 in layers)
+    y = 1 / impedance
+    assert ac.admittance[0, 0].real == pytest.approx(y.real, rel=1e-4)
+    assert ac.admittance[0, 0].imag == pytest.approx(y.imag, rel=1e-4)
+    assert ac.loss == pytest.approx(0.5 * y.real * 12e3**2, rel=1e-4)

@@ -302,3 +302,50 @@ def test_iterations_that_do_not_converge_are_an_error(tmp_path, capsys):
     message = run_expecting_error(tmp_path, capsys, write_case(tmp_path, case + "max_iterations = 1\n"))
     assert re.search(r"the DC conduction iterations \(sigma depends on the field\) did not converge: relative change "
                      r"inf after 1 solves, wanted 1e-08; raise analysis\.max_iterations", message), message
+
+
+# ---------------------------------------------------------------- the shipped DC examples, on their first mesh
+def shipped(name):
+    from dataclasses import replace
+
+    from fieldsection.case import load_case
+    return analyse(replace(load_case(GEOMETRIES / name), refinement=SINGLE_MESH))
+
+
+def test_shipped_hvdc_cable_against_the_radial_reference():
+    # sigma = sigma0 exp(alpha (T(r) - 20) + beta E) with T linear in r from 70 degC (r = 25 mm) to 50 degC
+    # (r = 50 mm): the current per metre is the same through every radius, so
+    # beta E(r) = W(beta I / (2 pi r sigma0 exp(alpha (T(r) - 20)))) and V = integral of E dr (scipy's lambertw,
+    # quad, brentq: a reference independent of the FE code); the form and values as in the case file
+    result = shipped("hvdc_cable_dc.toml")
+    dc = result.conduction
+    a, b, v, s0, alpha, beta = 25e-3, 50e-3, 320e3, 1e-16, 0.084, 0.0645e-6
+
+    def base(r):
+        return s0 * math.exp(alpha * (70.0 + (r - a) / (b - a) * (50.0 - 70.0) - 20.0))
+
+    def field(r, current):
+        return float(lambertw(beta * current / (2 * math.pi * r * base(r))).real) / beta
+
+    current = brentq(lambda i: quad(field, a, b, args=(i,), epsrel=1e-12)[0] - v, 1e-12, 1e-4, xtol=1e-30, rtol=1e-13)
+    assert dc.currents[0] == pytest.approx(current, rel=1e-4)
+    assert dc.nonlinear and dc.last_change <= 1e-8
+    # stress inversion: the peak sits at the cool outer surface and is below the electrostatic one
+    assert field(b, current) > field(a, current)
+    assert dc.regions["insulation"].peak_E == pytest.approx(field(b, current), rel=1e-2)
+    assert dc.regions["insulation"].peak_E < dc.regions["insulation"].electrostatic_peak_E
+
+
+def test_shipped_busbar_under_dc():
+    # between the bars the film (1e-16 S/m) is in series with nothing but itself: 3 kV across 0.3 mm,
+    # 10 kV/mm (elementary), as in the electrostatic solution; where the film meets the housing
+    # (1e-14 S/m) the two see different eps/sigma and a free interface charge builds up
+    result = shipped("busbar_laminated_dc.toml")
+    dc = result.conduction
+    section = result.problem.section
+    film = section.elements_of("film")
+    middle = np.median(dc.E_magnitude[film].max(axis=1))
+    assert middle == pytest.approx(10e6, rel=1e-2)
+    faces = {frozenset((f.region_a, f.region_b)): f for f in dc.interfaces}
+    assert abs(faces[frozenset(("film", "housing"))].free_charge) > 0
+    assert dc.currents[0] == pytest.approx(-dc.currents[1], rel=1e-3)  # what leaves one bar enters the other
