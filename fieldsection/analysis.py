@@ -213,6 +213,18 @@ def check_against_case(settings: AnalysisSettings, regions: Mapping[str, Any], e
                     f"under [materials.{material.name}]")
 
 
+def electrostatic_case(case: Any) -> Any:
+    """The case the electrostatic analysis solves: for AC with phases, the instant t = 0, each electrode at
+    V cos(phase) (a three-phase set of equal amplitudes would otherwise be one potential); else ``case``."""
+    settings = case.analysis
+    if settings.kind != "ac" or not any(settings.phases_deg.values()):
+        return case
+    from dataclasses import replace
+
+    return replace(case, electrodes={name: value * math.cos(math.radians(settings.phases_deg.get(name, 0.0)))
+                                     for name, value in case.electrodes.items()})
+
+
 def run_analysis(case: Any, problem: Any, electrostatic_E_magnitude: np.ndarray,
                  electrostatic_potential: np.ndarray) -> Any:
     """The DC or AC result for ``case`` on the electrostatic problem's mesh; None for an electrostatic case."""

@@ -7,7 +7,7 @@ those potentials, and the dielectric loss is the time average, P = 1/2 Re(V I*) 
 
 The loss of a material with loss tangent tan(d) and conductivity sigma enters as the effective
 conductivity sigma_eff = sigma + omega eps tan(d) (eps'' = eps' tan(d)); a material with neither is
-lossless. The complex matrix A = K_sigma_eff + j omega K_eps is assembled from the two real ones (the
+lossless. Each conductivity is its sigma0: no temperature or field dependence in AC. The complex matrix A = K_sigma_eff + j omega K_eps is assembled from the two real ones (the
 form is linear in its coefficient), reduced over the free DOFs and floating conductors (which carry
 no net current) and solved by GMRES with the real matrix K_sigma_eff + omega K_eps as preconditioner
 (see ``_ComplexSystem``), one solve per fixed conductor: the admittance matrix Y = G + j omega C per
@@ -163,8 +163,9 @@ def analyse_ac(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
         unit = system.solve(conductor_indicator(problem, fixed))
     finally:
         system.close()
-    phasors = np.array([c.potential * np.exp(1j * math.radians(settings.phases_deg.get(c.name, 0.0)))
-                        for c in fixed])
+    # amplitudes from the case (the problem's conductors hold the electrostatic instant t = 0)
+    phasors = np.array([case.electrodes.get(c.name, c.potential)
+                        * np.exp(1j * math.radians(settings.phases_deg.get(c.name, 0.0))) for c in fixed])
     u = unit @ phasors
     L = conductor_indicator(problem, fixed)
     admittance = copies * (L.T @ (A @ unit))
@@ -188,6 +189,9 @@ def analyse_ac(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
                                  float(sigma_eff[elements].mean()) if elements.size else 0.0,
                                  0.5 * copies * losses[name], over)
     notes = []
+    if any(settings.phases_deg.values()):
+        notes.append("the electrostatic sections of this report are the instant t = 0, each electrode at "
+                     "V cos(phase); the peak over a period is in this section")
     lossless = sorted({m.name for m in problem.material_of_region.values()
                        if m.conductivity is None and m.loss_tangent is None})
     if lossless:

@@ -15,7 +15,7 @@ import numpy as np
 from scipy.spatial import cKDTree
 
 from .adapt import PassRecord, region_vertex_fields, wanted_sizes
-from .analysis import check_against_case, run_analysis
+from .analysis import check_against_case, electrostatic_case, run_analysis
 from .capacitance import CapacitanceResult, compute_capacitance
 from .case import Case
 from .certificate import SINGULAR, PeakCertificate, certify
@@ -90,6 +90,7 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
     seconds: dict[str, float] = {}
     if case.analysis.kind != "electrostatic":  # the analysis's names and materials, before any meshing
         check_against_case(case.analysis, case.regions, case.electrodes, case.floating)
+    given, case = case, electrostatic_case(case)  # AC with phases: the electrostatic solution is the instant t = 0
 
     def stage(name: str, work: Callable[[], object]):
         if on_stage is not None:
@@ -155,7 +156,7 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
     corona = stage("corona", lambda: screen_corona(problem, last.peak_search_field, case.gas_pressure))
     conduction = None
     if case.analysis.kind != "electrostatic":
-        conduction = stage(case.analysis.kind, lambda: run_analysis(case, problem, last.fields.E_magnitude,
+        conduction = stage(case.analysis.kind, lambda: run_analysis(given, problem, last.fields.E_magnitude,
                                                                              last.solution.potential))
     computed = {f.name: getattr(last, f.name) for f in dataclass_fields(_Computed)}
     return SectionResult(**computed, case=case, hotspots=hotspots, gas_gaps=gas_gaps, stage_seconds=seconds,

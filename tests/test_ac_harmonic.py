@@ -183,3 +183,25 @@ def test_shipped_cable_with_grading_layer():
     assert ac.admittance[0, 0].real == pytest.approx(y.real, rel=1e-4)
     assert ac.admittance[0, 0].imag == pytest.approx(y.imag, rel=1e-4)
     assert ac.loss == pytest.approx(0.5 * y.real * 12e3**2, rel=1e-4)
+
+
+def test_two_wires_in_open_lossy_space():
+    # two parallel wires (radius 1 mm, centres 10 mm apart) in an unbounded medium: the mutual admittance is
+    # (sigma + j omega eps) pi / arccosh(d / 2a) per metre, the two-wire capacitance with eps -> sigma + j omega eps
+    # (pi / arccosh(5) = 1.3704193, as in tests/test_several_conductors.py; elementary). The open space beyond
+    # the circle is the Kelvin image of the same medium.
+    from conftest import solve_script  # noqa: F401  (the same geometry as the electrostatic check)
+    sigma, er, f = 2e-10, 3.0, 50.0
+    result = analyse(Case(name="wires", geometry=ScriptGeometry(GEOMETRIES / "two_wires.geo", {"space_radius": 8}, 1e-3),
+                          regions={"air": Material("lossy", er, None, conductivity=sigma)},
+                          electrodes={"wire_a": 1000.0, "wire_b": 1000.0}, outer_boundary="open",
+                          mesh=MeshSettings(element_order=2), refinement=SINGLE_MESH,
+                          analysis=AnalysisSettings(kind="ac", frequency=f, phases_deg={"wire_b": 180.0})))
+    ac = result.conduction
+    factor = math.pi / math.acosh(5.0)
+    assert factor == pytest.approx(1.3704193, rel=1e-7)
+    y = (sigma + 2j * math.pi * f * epsilon_0 * er) * factor
+    assert ac.admittance[0, 1].real == pytest.approx(-y.real, rel=1e-3)
+    assert ac.admittance[0, 1].imag == pytest.approx(-y.imag, rel=1e-3)
+    # +/-1 kV peak (the second at 180 degrees): 2 kV across the pair, loss = Re(y) (2 kV)^2 / 2
+    assert ac.loss == pytest.approx(0.5 * y.real * 2000.0**2, rel=1e-3)

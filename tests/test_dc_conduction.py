@@ -349,3 +349,27 @@ def test_shipped_busbar_under_dc():
     faces = {frozenset((f.region_a, f.region_b)): f for f in dc.interfaces}
     assert abs(faces[frozenset(("film", "housing"))].free_charge) > 0
     assert dc.currents[0] == pytest.approx(-dc.currents[1], rel=1e-3)  # what leaves one bar enters the other
+
+
+# ---------------------------------------------------------------- bodies of revolution and open space
+def sphere(electrodes, outer="grounded", parameters=None, analysis=DC):
+    return analyse(Case("sphere", ScriptGeometry(GEOMETRIES / "sphere.geo", parameters or {}, 1e-3),
+                        {"gas": Material("m", 2.0, None, conductivity=1e-12)}, electrodes, outer_boundary=outer,
+                        model="axisymmetric", mesh=MeshSettings(element_order=2), refinement=SINGLE_MESH,
+                        analysis=analysis))
+
+
+def test_concentric_spheres_leakage():
+    # G = 4 pi sigma a b / (b - a), the spherical capacitor with eps -> sigma (elementary)
+    a, b = 1e-3, 3e-3
+    dc = sphere({"sphere": 1000.0, "shell": 0.0}, parameters={"shell": 1}).conduction
+    assert dc.currents[0] == pytest.approx(4 * math.pi * 1e-12 * a * b / (b - a) * 1000.0, rel=1e-3)
+
+
+def test_sphere_in_open_conducting_space():
+    # a sphere in an unbounded medium: G = 4 pi sigma a to infinity (elementary); solved through the Kelvin
+    # image of the exterior, which takes the medium's conductivity
+    a = 1e-3
+    dc = sphere({"sphere": 1000.0}, outer="open", parameters={"space_radius": 3.0}).conduction
+    assert dc.fixed_names == ("sphere", "infinity")
+    assert dc.currents[0] == pytest.approx(4 * math.pi * 1e-12 * a * 1000.0, rel=1e-3)
