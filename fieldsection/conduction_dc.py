@@ -10,7 +10,9 @@ Anderson-accelerated (``_anderson``).
 Reported: the DC field and its peak per region against the material's DC strength, the leakage current
 per conductor, the conductance matrix (linear case), the free interface charge
 rho_s = (D_b - D_a) . n_ab = (eps_b/sigma_b - eps_a/sigma_a) J_n at every interface between dielectrics
-(Maxwell-Wagner), the time constant eps/sigma per region, and the Joule loss per region.
+(Maxwell-Wagner), the time constant eps/sigma per region, the Joule loss per region, and the peak
+field right after a polarity reversal (the DC steady field minus twice the electrostatic one: the
+reversal's capacitive step, before any charge moves).
 Per-metre values for a planar model, whole-body values for an axisymmetric one; times ``symmetry_copies``.
 """
 
@@ -50,10 +52,15 @@ class RegionDC:
     time_constant: tuple[float, float]  # s, eps/sigma: least and largest over the region's elements
     conductivity: tuple[float, float]  # S/m, least and largest over the region's elements
     joule_loss: float  # W/m (planar) or W (axisymmetric)
+    reversal_peak_E: float = 0.0  # V/m, right after a polarity reversal from the DC steady state (same measure)
 
     @property
     def utilisation(self) -> float | None:
         return None if self.dc_strength is None else self.peak_E / self.dc_strength
+
+    @property
+    def reversal_utilisation(self) -> float | None:
+        return None if self.dc_strength is None else self.reversal_peak_E / self.dc_strength
 
     @property
     def ratio_to_electrostatic(self) -> float:
@@ -223,6 +230,10 @@ def analyse_dc(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
 
     peaks = region_peaks(problem, magnitude)
     electrostatic = region_peaks(problem, electrostatic_E_magnitude)
+    # right after a polarity reversal (+V to -V in a time short against eps/sigma) the free charge has not
+    # moved: the DC steady field plus the capacitive field of the step -2V
+    reversed_E = vertex_field(problem, u - 2 * electrostatic_potential)
+    reversal = region_peaks(problem, np.hypot(reversed_E[..., 0], reversed_E[..., 1]))
     joule = region_quadratic(problem, sigma, u)
     section = problem.section
     regions = {}
@@ -232,7 +243,7 @@ def analyse_dc(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
         tau = eps[elements] / s
         regions[name] = RegionDC(name, material.name, peaks[name], electrostatic[name], material.dc_strength,
                                  (float(tau.min()), float(tau.max())), (float(s.min()), float(s.max())),
-                                 copies * joule[name])
+                                 copies * joule[name], reversal[name])
 
     interfaces = _interface_charges(problem, u, eps, copies)
     warnings = []

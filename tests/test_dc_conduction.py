@@ -373,3 +373,19 @@ def test_sphere_in_open_conducting_space():
     dc = sphere({"sphere": 1000.0}, outer="open", parameters={"space_radius": 3.0}).conduction
     assert dc.fixed_names == ("sphere", "infinity")
     assert dc.currents[0] == pytest.approx(4 * math.pi * 1e-12 * a * 1000.0, rel=1e-3)
+
+
+def test_polarity_reversal_in_two_layers():
+    # right after +V -> -V (faster than eps/sigma) the DC field is joined by the capacitive field of the -2V
+    # step: E_i = V/(sigma_i sum d_k/sigma_k) - 2 V/(eps_i sum d_k/eps_k) in each layer (superposition of the
+    # resistive and capacitive distributions; the usual HVDC polarity-reversal estimate, e.g. Jeroense &
+    # Morshuis 1998, from memory). Uniform fields: exact on any mesh.
+    d1, d2, e1, e2, s1, s2 = 1e-3, 2e-3, 2.0, 5.0, 3e-14, 1e-15
+    dc = plates([("lower", 1.0), ("upper", 2.0)],
+                {"lower": Material("a", e1, None, conductivity=s1, dc_strength=50e6),
+                 "upper": Material("b", e2, None, conductivity=s2)}).conduction
+    V = 1000.0
+    for name, e, s in (("lower", e1, s1), ("upper", e2, s2)):
+        expected = abs(V / (s * (d1 / s1 + d2 / s2)) - 2 * V / (e * (d1 / e1 + d2 / e2)))
+        assert dc.regions[name].reversal_peak_E == pytest.approx(expected, rel=1e-9)
+    assert dc.regions["lower"].reversal_utilisation == pytest.approx(dc.regions["lower"].reversal_peak_E / 50e6)
