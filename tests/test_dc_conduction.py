@@ -389,3 +389,20 @@ def test_polarity_reversal_in_two_layers():
         expected = abs(V / (s * (d1 / s1 + d2 / s2)) - 2 * V / (e * (d1 / e1 + d2 / e2)))
         assert dc.regions[name].reversal_peak_E == pytest.approx(expected, rel=1e-9)
     assert dc.regions["lower"].reversal_utilisation == pytest.approx(dc.regions["lower"].reversal_peak_E / 50e6)
+
+
+def test_floating_shell_takes_the_conductance_divider_potential():
+    # a floating metal shell between coaxial conductors carries no net current in the DC steady state: its
+    # potential is V G1 / (G1 + G2) with G_i = 2 pi sigma_i / ln(r_out_i / r_in_i) (elementary), whatever
+    # charge the electrostatic case gave it
+    r0, r1, r2, r3, s1, s2 = 1e-3, 1.8e-3, 1.9e-3, 3e-3, 1e-13, 5e-13
+    case = Case("shell", ScriptGeometry(GEOMETRIES / "coaxial_floating_shell.geo", {}, 1e-3),
+                {"inner_gap": Material("a", 2.0, None, conductivity=s1),
+                 "outer_gap": Material("b", 4.0, None, conductivity=s2)}, {"inner": 1000.0, "outer": 0.0},
+                floating={"shell": 2e-9}, mesh=MeshSettings(element_order=2), refinement=SINGLE_MESH, analysis=DC)
+    result = analyse(case)
+    g1, g2 = s1 / math.log(r1 / r0), s2 / math.log(r3 / r2)
+    shell = result.problem.floating[0]
+    assert result.conduction.potential[shell.dofs[0]] == pytest.approx(1000.0 * g1 / (g1 + g2), rel=1e-4)
+    assert result.conduction.currents[[c.name for c in result.problem.conductors].index("shell")] == \
+        pytest.approx(0.0, abs=1e-9 * result.conduction.currents[0])
