@@ -406,3 +406,19 @@ def test_floating_shell_takes_the_conductance_divider_potential():
     assert result.conduction.potential[shell.dofs[0]] == pytest.approx(1000.0 * g1 / (g1 + g2), rel=1e-4)
     assert result.conduction.currents[[c.name for c in result.problem.conductors].index("shell")] == \
         pytest.approx(0.0, abs=1e-9 * result.conduction.currents[0])
+
+
+def test_linear_temperature_profile_across_a_slab():
+    # T rises linearly from 20 degC at the bottom plate to 50 degC at the top one (1 mm): sigma(y) =
+    # sigma0 exp(alpha (T(y) - 20)); the current density is the same at every height, J = V / integral dy/sigma,
+    # integral = (1 - exp(-alpha k d)) / (sigma0 alpha k) with k = 30 K/mm (elementary calculus)
+    from fieldsection.analysis import TemperatureProfile
+    alpha, s0, d, k = 0.05, 1e-15, 1e-3, 30.0 / 1e-3
+    profile = TemperatureProfile(20.0, 50.0, (0.0, 0.0), (0.0, 1e-3), "line")
+    dc = plates([("gap", 1.0)], {"gap": Material("x", 2.0, None, conductivity=s0, conductivity_alpha=alpha)},
+                analysis=AnalysisSettings(kind="dc", temperatures={"gap": profile}), order=2).conduction
+    j = 1000.0 / ((1 - math.exp(-alpha * k * d)) / (s0 * alpha * k))
+    assert dc.currents[[n for n in dc.conductor_names].index("top")] == pytest.approx(j * W, rel=1e-4)
+    # at the cool bottom plate; P2 on 0.25 mm elements follows the exp(-alpha k y) field to a few 1e-3
+    assert dc.regions["gap"].peak_E == pytest.approx(j / s0, rel=1e-2)
+    assert "linear along the line" in dc.temperatures["gap"]
