@@ -128,11 +128,12 @@ def _summary(result, folder: Path) -> None:
 def _materials() -> int:
     from .materials import shipped_materials
 
-    print(f"{'name':20s} {'kind':7s} {'eps_r':>8s} {'strength (kV/mm)':>17s} {'tan delta':>10s}")
+    print(f"{'name':20s} {'kind':7s} {'eps_r':>8s} {'strength (kV/mm)':>17s} {'tan delta':>10s} {'sigma (S/m)':>12s}")
     for m in shipped_materials().values():
         strength = "unknown" if m.dielectric_strength is None else f"{m.dielectric_strength * 1e-6:.4g}"
         tan_d = "-" if m.loss_tangent is None else f"{m.loss_tangent:.2g}"
-        print(f"{m.name:20s} {m.kind:7s} {m.relative_permittivity:8.4g} {strength:>17s} {tan_d:>10s}")
+        sigma = "-" if m.conductivity is None else f"{m.conductivity:.2g}"
+        print(f"{m.name:20s} {m.kind:7s} {m.relative_permittivity:8.4g} {strength:>17s} {tan_d:>10s} {sigma:>12s}")
     return EXIT_OK
 
 

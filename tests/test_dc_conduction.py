@@ -422,3 +422,11 @@ def test_linear_temperature_profile_across_a_slab():
     # at the cool bottom plate; P2 on 0.25 mm elements follows the exp(-alpha k y) field to a few 1e-3
     assert dc.regions["gap"].peak_E == pytest.approx(j / s0, rel=1e-2)
     assert "linear along the line" in dc.temperatures["gap"]
+
+
+def test_material_listing_shows_conductivities(capsys):
+    from fieldsection.cli import main
+    assert main(["materials"]) == 0
+    out = capsys.readouterr().out
+    assert "sigma (S/m)" in out.splitlines()[0]
+    assert re.search(r"^XLPE .* 1e-16$", out, re.MULTILINE)
