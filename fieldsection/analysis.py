@@ -60,6 +60,20 @@ class TemperatureProfile:
     along: str = "line"
     inner_radius: float = 0.0  # m, "radius" only
 
+    def __post_init__(self) -> None:
+        if self.along not in ALONG:
+            raise CaseFileError(f"temperature profile: along = {self.along!r}, use one of {', '.join(map(repr, ALONG))}")
+        numbers = [self.at_start] + ([] if self.start is None else [self.at_end, *self.start, *(self.end or ())])
+        if self.start is not None and (self.end is None or self.at_end is None):
+            raise CaseFileError("temperature profile: a linear profile needs start, end, at_start and at_end")
+        if not all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in numbers):
+            raise CaseFileError(f"temperature profile: {numbers!r} must be finite numbers (degC, m)")
+        if self.start is not None:
+            span = math.hypot(self.end[0] - self.start[0], self.end[1] - self.start[1])
+            if span <= 0 or (self.along == "radius" and not 0 <= self.inner_radius < span):
+                raise CaseFileError("temperature profile: its end must lie away from its start (and beyond "
+                                    "inner_radius)")
+
     def at(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
         """degC at the points (x, y) (arrays of one shape, m)."""
         if self.start is None:

@@ -159,8 +159,14 @@ def analyse_ac(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
     A = conductance + 1j * omega * problem.stiffness  # problem.stiffness is K_eps
     system = _ComplexSystem(problem, conductance, omega, case.solver)
     fixed = problem.fixed
+    lifts = conductor_indicator(problem, fixed)
     try:
-        unit = system.solve(conductor_indicator(problem, fixed))
+        if len(fixed) > 1:  # A annihilates constants: the unit solutions sum to 1, so the last one needs no solve
+            unit = np.empty(lifts.shape, dtype=complex)
+            unit[:, :-1] = system.solve(lifts[:, :-1])
+            unit[:, -1] = 1.0 - unit[:, :-1].sum(axis=1)
+        else:
+            unit = system.solve(lifts)
     finally:
         system.close()
     # amplitudes from the case (the problem's conductors hold the electrostatic instant t = 0)

@@ -430,3 +430,14 @@ def test_material_listing_shows_conductivities(capsys):
     out = capsys.readouterr().out
     assert "sigma (S/m)" in out.splitlines()[0]
     assert re.search(r"^XLPE .* 1e-16$", out, re.MULTILINE)
+
+
+def test_temperature_profile_checks_its_values_in_python():
+    from fieldsection.analysis import TemperatureProfile
+    from fieldsection.errors import CaseFileError
+    with pytest.raises(CaseFileError, match=r"along = 'diagonal', use one of 'line', 'radius'"):
+        TemperatureProfile(20.0, 30.0, (0.0, 0.0), (1.0, 0.0), "diagonal")
+    with pytest.raises(CaseFileError, match=r"its end must lie away from its start"):
+        TemperatureProfile(20.0, 30.0, (0.0, 0.0), (0.0, 0.0))
+    with pytest.raises(CaseFileError, match=r"must be finite numbers"):
+        TemperatureProfile(float("nan"))
