@@ -245,13 +245,15 @@ def test_the_dc_base_case_runs(tmp_path, capsys):
     # guards the error tests below, each of which changes one thing in this case
     from fieldsection.cli import main
     reports = tmp_path / "reports"
-    assert main(["run", str(write_case(tmp_path, DC_PLATES)), "--reports", str(reports), "--no-figures"]) == 0
+    assert main(["run", str(write_case(tmp_path, DC_PLATES)), "--reports", str(reports)]) == 0
     out = capsys.readouterr().out
     assert "analysis: DC steady conduction (linear)" in out and "leakage current out of top" in out
     import json
     (folder,) = reports.iterdir()
     results = json.loads((folder / "results.json").read_text())
     assert results["analysis"]["kind"] == "dc"
+    assert (folder / "dc_field.png").is_file() and (folder / "dc_loss.png").is_file()
+    assert "Analysis: DC steady conduction" in (folder / "report.html").read_text()
     # 1 kV over 1 mm of 1e-15 S/m: J = 1e-9 A/m^2, times the 10 mm width: 1e-11 A/m (Ohm's law)
     assert results["analysis"]["leakage_current_A_per_m"]["top"] == pytest.approx(1e-11, rel=1e-9)
 
