@@ -1,8 +1,9 @@
 """Reporting the DC or AC analysis: the "analysis" block of results.json, two figures, CLI summary lines.
 
 Engineers' units at this edge only: kV/mm, uC/m^2, pF/m; conductances, currents and losses in SI
-(S/m, A/m, W/m), labelled in every key. ``results.build_results`` renames the "_per_m" keys for an
-axisymmetric model (whole-body values).
+(S/m, A/m, W/m), labelled in every key. Per-length keys end in "_per_m" for a planar model and
+drop it for an axisymmetric one (whole-body values), as the rest of results.json; material
+conductivities keep their S/m.
 """
 
 from __future__ import annotations
@@ -53,7 +54,13 @@ def analysis_results(result) -> dict[str, Any]:
     return _ac(result, extra)
 
 
+def _per_length(result) -> str:
+    """The suffix of per-length keys: "_per_m" for a planar model, none for a body of revolution."""
+    return "_per_m" if result.case.model == "planar" else ""
+
+
 def _dc(result, dc: DCResult) -> dict[str, Any]:
+    L = _per_length(result)
     return {
         "kind": "dc",
         "meaning": KINDS["dc"],
@@ -70,10 +77,10 @@ def _dc(result, dc: DCResult) -> dict[str, Any]:
         "tolerance": dc.tolerance if dc.nonlinear else None,
         "last_relative_change": dc.last_change if dc.nonlinear else None,
         "linear_solver": dc.solver,
-        "leakage_current_A_per_m": {n: float(i) for n, i in zip(dc.conductor_names, dc.currents)},
+        f"leakage_current_A{L}": {n: float(i) for n, i in zip(dc.conductor_names, dc.currents)},
         "conductance_conductors": list(dc.fixed_names),
-        "conductance_matrix_S_per_m": None if dc.conductance is None else dc.conductance.tolist(),
-        "joule_loss_W_per_m": dc.loss,
+        f"conductance_matrix_S{L}": None if dc.conductance is None else dc.conductance.tolist(),
+        f"joule_loss_W{L}": dc.loss,
         "relaxation_time_s": dc.relaxation_time,
         "relaxation_time_meaning": "d.K_eps.d / d.K_sigma.d for d = electrostatic minus DC potential: the time constant "
                                    "of the change from the capacitive to the resistive field after a voltage step "
@@ -91,7 +98,7 @@ def _dc(result, dc: DCResult) -> dict[str, Any]:
                 "fraction_of_dc_strength": r.utilisation,
                 "conductivity_range_S_per_m": list(r.conductivity),
                 "time_constant_eps_over_sigma_range_s": list(r.time_constant),
-                "joule_loss_W_per_m": r.joule_loss,
+                f"joule_loss_W{L}": r.joule_loss,
                 "polarity_reversal_peak_E_kV_per_mm": r.reversal_peak_E * 1e-6,
                 "polarity_reversal_fraction_of_dc_strength": r.reversal_utilisation,
             }
@@ -101,7 +108,7 @@ def _dc(result, dc: DCResult) -> dict[str, Any]:
             "convention": "rho_s = (D_b - D_a) . n_ab = (eps_b/sigma_b - eps_a/sigma_a) J_n, n_ab from region a to "
                           "region b; totals for the full section",
             "faces": [
-                {"between": [i.region_a, i.region_b], "total_C_per_m": i.free_charge,
+                {"between": [i.region_a, i.region_b], f"total_C{L}": i.free_charge,
                  "peak_abs_rho_s_uC_per_m2": i.peak_abs_density * 1e6}
                 for i in dc.interfaces
             ],
@@ -118,6 +125,7 @@ def _phasor(z: complex) -> dict[str, float]:
 
 
 def _ac(result, ac: ACResult) -> dict[str, Any]:
+    L = _per_length(result)
     names = list(ac.fixed_names)
     return {
         "kind": "ac",
@@ -131,12 +139,12 @@ def _ac(result, ac: ACResult) -> dict[str, Any]:
         "materials": _materials(result.problem),
         "linear_solver": ac.solver,
         "electrode_phasors_V": {n: _phasor(z) for n, z in zip(names, ac.phasors)},
-        "electrode_currents_A_per_m": {n: _phasor(z) for n, z in zip(names, ac.currents)},
+        f"electrode_currents_A{L}": {n: _phasor(z) for n, z in zip(names, ac.currents)},
         "conductors": names,
-        "capacitance_matrix_pF_per_m": (ac.capacitance * 1e12).tolist(),
-        "conductance_matrix_S_per_m": ac.conductance.tolist(),
-        "dielectric_loss_W_per_m": ac.loss,
-        "dielectric_loss_sum_of_regions_W_per_m": ac.loss_from_regions,
+        f"capacitance_matrix_pF{L}": (ac.capacitance * 1e12).tolist(),
+        f"conductance_matrix_S{L}": ac.conductance.tolist(),
+        f"dielectric_loss_W{L}": ac.loss,
+        f"dielectric_loss_sum_of_regions_W{L}": ac.loss_from_regions,
         "peak_fields_note": PEAK_NOTE,
         "regions": [
             {
@@ -148,7 +156,7 @@ def _ac(result, ac: ACResult) -> dict[str, Any]:
                 "fraction_of_strength": r.utilisation,
                 "elements_at_or_above_hotspot_fraction": r.elements_over_fraction,
                 "effective_conductivity_S_per_m": r.effective_conductivity,
-                "dielectric_loss_W_per_m": r.loss,
+                f"dielectric_loss_W{L}": r.loss,
             }
             for r in ac.regions.values()
         ],
@@ -219,13 +227,14 @@ def plot_element_values(problem, values: np.ndarray, path: str | os.PathLike, la
 def summary_lines(result) -> list[str]:
     """What the CLI prints about the DC or AC analysis."""
     extra = result.conduction
+    per = "/m" if result.case.model == "planar" else ""
     lines = []
     if isinstance(extra, DCResult):
         how = (f"Picard, {extra.iterations} linear solves to a relative change of {extra.last_change:.1e}"
                if extra.nonlinear else "linear")
         lines.append(f"analysis: DC steady conduction ({how})")
         for name, current in zip(extra.conductor_names, extra.currents):
-            lines.append(f"  leakage current out of {name}: {current:.4g} A/m")
+            lines.append(f"  leakage current out of {name}: {current:.4g} A{per}")
         for r in extra.regions.values():
             share = "" if r.utilisation is None else f", {100 * r.utilisation:.1f} % of DC strength"
             lines.append(f"  DC peak |E| in {r.region}: {r.peak_E * 1e-6:.4g} kV/mm (electrostatic "
@@ -233,8 +242,8 @@ def summary_lines(result) -> list[str]:
                          f"{r.reversal_peak_E * 1e-6:.4g}){share}")
         lines += [f"  warning: {w}" for w in extra.warnings]
     else:
-        lines.append(f"analysis: AC at {extra.frequency:g} Hz; dielectric loss {extra.loss:.4g} W/m (time average, "
+        lines.append(f"analysis: AC at {extra.frequency:g} Hz; dielectric loss {extra.loss:.4g} W{per} (time average, "
                      "potentials as peak values)")
         for r in extra.regions.values():
-            lines.append(f"  peak |E| over a period in {r.region}: {r.peak_E * 1e-6:.4g} kV/mm, loss {r.loss:.4g} W/m")
+            lines.append(f"  peak |E| over a period in {r.region}: {r.peak_E * 1e-6:.4g} kV/mm, loss {r.loss:.4g} W{per}")
     return lines

@@ -111,13 +111,13 @@ def _refinement(result: SectionResult) -> dict[str, Any]:
 def build_results(result: SectionResult) -> dict[str, Any]:
     """Every number of a run; for a body of revolution the per-metre keys become whole-body ones."""
     results = _build(result)
-    if result.conduction is not None:  # a DC or AC analysis ran beside the electrostatic one
+    if result.case.model != "planar":
+        results = _whole_body(results)
+    if result.conduction is not None:  # a DC or AC analysis ran beside the electrostatic one (names its own keys)
         from .analysis_report import analysis_results
 
         results["analysis"] = analysis_results(result)
-    if result.case.model == "planar":
-        return results
-    return _whole_body(results)
+    return results
 
 
 def _whole_body(value: Any) -> Any:

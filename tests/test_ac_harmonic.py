@@ -205,3 +205,24 @@ def test_two_wires_in_open_lossy_space():
     assert ac.admittance[0, 1].imag == pytest.approx(-y.imag, rel=1e-3)
     # +/-1 kV peak (the second at 180 degrees): 2 kV across the pair, loss = Re(y) (2 kV)^2 / 2
     assert ac.loss == pytest.approx(0.5 * y.real * 2000.0**2, rel=1e-3)
+
+
+def test_concentric_spheres_at_ac_and_their_report(tmp_path):
+    # Y = 4 pi (sigma + j omega eps) a b / (b - a) for the whole body (the spherical capacitor with eps -> the
+    # complex admittivity; elementary); an axisymmetric model reports whole-body keys
+    import json
+
+    from fieldsection.report import write_report
+    a, b, sigma, er, f = 1e-3, 3e-3, 1e-9, 2.0, 50.0
+    result = analyse(Case("sphere", ScriptGeometry(GEOMETRIES / "sphere.geo", {"shell": 1}, 1e-3),
+                          {"gas": Material("m", er, 10e6, conductivity=sigma)}, {"sphere": 1000.0, "shell": 0.0},
+                          model="axisymmetric", mesh=MeshSettings(element_order=2), refinement=SINGLE_MESH,
+                          analysis=AnalysisSettings(kind="ac", frequency=f)))
+    y = 4 * math.pi * (sigma + 2j * math.pi * f * epsilon_0 * er) * a * b / (b - a)
+    ac = result.conduction
+    assert ac.admittance[0, 0].real == pytest.approx(y.real, rel=1e-3)
+    assert ac.admittance[0, 0].imag == pytest.approx(y.imag, rel=1e-3)
+    folder = write_report(result, tmp_path, with_figures=False)
+    block = json.loads((folder / "results.json").read_text())["analysis"]
+    assert block["dielectric_loss_W"] == pytest.approx(0.5 * y.real * 1000.0**2, rel=1e-3)
+    assert block["capacitance_matrix_pF"][0][0] == pytest.approx(y.imag / (2 * math.pi * f) * 1e12, rel=1e-3)

@@ -356,16 +356,28 @@ def test_shipped_busbar_under_dc():
 # ---------------------------------------------------------------- bodies of revolution and open space
 def sphere(electrodes, outer="grounded", parameters=None, analysis=DC):
     return analyse(Case("sphere", ScriptGeometry(GEOMETRIES / "sphere.geo", parameters or {}, 1e-3),
-                        {"gas": Material("m", 2.0, None, conductivity=1e-12)}, electrodes, outer_boundary=outer,
+                        {"gas": Material("m", 2.0, 10e6, conductivity=1e-12)}, electrodes, outer_boundary=outer,
                         model="axisymmetric", mesh=MeshSettings(element_order=2), refinement=SINGLE_MESH,
                         analysis=analysis))
 
 
-def test_concentric_spheres_leakage():
+def test_concentric_spheres_leakage(tmp_path):
     # G = 4 pi sigma a b / (b - a), the spherical capacitor with eps -> sigma (elementary)
+    import json
+
+    from fieldsection.report import write_report
     a, b = 1e-3, 3e-3
-    dc = sphere({"sphere": 1000.0, "shell": 0.0}, parameters={"shell": 1}).conduction
-    assert dc.currents[0] == pytest.approx(4 * math.pi * 1e-12 * a * b / (b - a) * 1000.0, rel=1e-3)
+    result = sphere({"sphere": 1000.0, "shell": 0.0}, parameters={"shell": 1})
+    dc = result.conduction
+    g = 4 * math.pi * 1e-12 * a * b / (b - a)
+    assert dc.currents[0] == pytest.approx(g * 1000.0, rel=1e-3)
+    # a body of revolution: whole-body keys (no "_per_m"), except the material's conductivity in S/m
+    folder = write_report(result, tmp_path, with_figures=False)
+    block = json.loads((folder / "results.json").read_text())["analysis"]
+    assert block["leakage_current_A"]["sphere"] == pytest.approx(g * 1000.0, rel=1e-3)
+    assert block["conductance_matrix_S"][0][0] == pytest.approx(g, rel=1e-3)
+    assert block["materials"][0]["conductivity_S_per_m"] == 1e-12
+    assert "leakage current (A)" in (folder / "report.html").read_text()
 
 
 def test_sphere_in_open_conducting_space():
