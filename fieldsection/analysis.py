@@ -62,7 +62,8 @@ class TemperatureProfile:
 
     def __post_init__(self) -> None:
         if self.along not in ALONG:
-            raise CaseFileError(f"temperature profile: along = {self.along!r}, use one of {', '.join(map(repr, ALONG))}")
+            raise CaseFileError(f"temperature profile: along = {self.along!r}, use one of "
+                                f"{', '.join(map(repr, ALONG))}")
         numbers = [self.at_start] + ([] if self.start is None else [self.at_end, *self.start, *(self.end or ())])
         if self.start is not None and (self.end is None or self.at_end is None):
             raise CaseFileError("temperature profile: a linear profile needs start, end, at_start and at_end")

@@ -82,9 +82,9 @@ def _dc(result, dc: DCResult) -> dict[str, Any]:
         f"conductance_matrix_S{L}": None if dc.conductance is None else dc.conductance.tolist(),
         f"joule_loss_W{L}": dc.loss,
         "relaxation_time_s": dc.relaxation_time,
-        "relaxation_time_meaning": "d.K_eps.d / d.K_sigma.d for d = electrostatic minus DC potential: the time constant "
-                                   "of the change from the capacitive to the resistive field after a voltage step "
-                                   "(exact for layers in series, the Maxwell-Wagner time; a weighted mean of the "
+        "relaxation_time_meaning": "d.K_eps.d / d.K_sigma.d for d = electrostatic minus DC potential: the time "
+                                   "constant of the change from the capacitive to the resistive field after a "
+                                   "voltage step (exact for layers in series, the Maxwell-Wagner time; a weighted mean of the "
                                    "excited modes otherwise); null when the two distributions coincide",
         "peak_fields_note": PEAK_NOTE,
         "peak_fields": [
@@ -245,5 +245,6 @@ def summary_lines(result) -> list[str]:
         lines.append(f"analysis: AC at {extra.frequency:g} Hz; dielectric loss {extra.loss:.4g} W{per} (time average, "
                      "potentials as peak values)")
         for r in extra.regions.values():
-            lines.append(f"  peak |E| over a period in {r.region}: {r.peak_E * 1e-6:.4g} kV/mm, loss {r.loss:.4g} W{per}")
+            lines.append(f"  peak |E| over a period in {r.region}: {r.peak_E * 1e-6:.4g} kV/mm, "
+                         f"loss {r.loss:.4g} W{per}")
     return lines

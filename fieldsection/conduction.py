@@ -169,7 +169,8 @@ def interface_faces(problem: AssembledProblem, conductor_facets: np.ndarray) -> 
     keys, inverse = np.unique(lo * len(section.region_names) + hi, return_inverse=True)
     names = section.region_names
     pairs = tuple((names[k // len(names)], names[k % len(names)]) for k in keys)
-    return InterfaceFaces(pairs, inverse.reshape(-1), facet_sides(problem, facets, ea), facet_sides(problem, facets, eb))
+    return InterfaceFaces(pairs, inverse.reshape(-1), facet_sides(problem, facets, ea),
+                          facet_sides(problem, facets, eb))
 
 
 def conductor_facets(problem: AssembledProblem) -> np.ndarray:

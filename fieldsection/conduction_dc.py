@@ -215,8 +215,9 @@ def analyse_dc(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
         if change > settings.tolerance:
             raise SolverError(
                 f"the DC conduction iterations (sigma depends on the field) did not converge: relative change "
-                f"{change:.1e} after {iterations} solves, wanted {settings.tolerance:.0e}; raise analysis.max_iterations, "
-                "or check conductivity_beta (beta |E| of order 10 or more makes the problem very stiff)")
+                f"{change:.1e} after {iterations} solves, wanted {settings.tolerance:.0e}; raise "
+                "analysis.max_iterations, or check conductivity_beta (beta |E| of order 10 or more makes the problem "
+                "very stiff)")
         sigma = sigma_of(field_magnitude_at_points(problem, u))
         K = stiffness_with(problem, sigma)
         dc_problem = with_stiffness(problem, K)

@@ -7,8 +7,9 @@ those potentials, and the dielectric loss is the time average, P = 1/2 Re(V I*) 
 
 The loss of a material with loss tangent tan(d) and conductivity sigma enters as the effective
 conductivity sigma_eff = sigma + omega eps tan(d) (eps'' = eps' tan(d)); a material with neither is
-lossless. Each conductivity is its sigma0: no temperature or field dependence in AC. The complex matrix A = K_sigma_eff + j omega K_eps is assembled from the two real ones (the
-form is linear in its coefficient), reduced over the free DOFs and floating conductors (which carry
+lossless. Each conductivity is its sigma0: no temperature or field dependence in AC. The complex
+matrix A = K_sigma_eff + j omega K_eps is assembled from the two real ones (the form is linear in
+its coefficient), reduced over the free DOFs and floating conductors (which carry
 no net current) and solved by GMRES with the real matrix K_sigma_eff + omega K_eps as preconditioner
 (see ``_ComplexSystem``), one solve per fixed conductor: the admittance matrix Y = G + j omega C per
 metre follows.
@@ -140,7 +141,8 @@ class _ComplexSystem:
 
 
 def peak_over_period(real: np.ndarray, imag: np.ndarray) -> np.ndarray:
-    """max over t of |Re((a + j b) e^{j w t})| for 2D vectors a, b (..., 2): the polarisation ellipse's semi-major axis."""
+    """max over t of |Re((a + j b) e^{j w t})| for 2D vectors a, b (..., 2): the semi-major axis of the
+    polarisation ellipse."""
     aa = (real**2).sum(axis=-1)
     bb = (imag**2).sum(axis=-1)
     ab = (real * imag).sum(axis=-1)

@@ -190,7 +190,6 @@ def test_two_wires_in_open_lossy_space():
     # (sigma + j omega eps) pi / arccosh(d / 2a) per metre, the two-wire capacitance with eps -> sigma + j omega eps
     # (pi / arccosh(5) = 1.3704193, as in tests/test_several_conductors.py; elementary). The open space beyond
     # the circle is the Kelvin image of the same medium.
-    from conftest import solve_script  # noqa: F401  (the same geometry as the electrostatic check)
     sigma, er, f = 2e-10, 3.0, 50.0
     result = analyse(Case(name="wires", geometry=ScriptGeometry(GEOMETRIES / "two_wires.geo", {"space_radius": 8}, 1e-3),
                           regions={"air": Material("lossy", er, None, conductivity=sigma)},
