@@ -14,6 +14,7 @@ from pathlib import Path
 from typing import Any, Callable
 
 import numpy as np
+from scipy.constants import epsilon_0
 
 from .analysis import KINDS
 from .conduction_dc import DIFFERS_FACTOR, DCResult
@@ -248,3 +249,53 @@ def summary_lines(result) -> list[str]:
             lines.append(f"  peak |E| over a period in {r.region}: {r.peak_E * 1e-6:.4g} kV/mm, "
                          f"loss {r.loss:.4g} W{per}")
     return lines
+
+
+ANALYSIS_FIELDS_FILE = "analysis_fields.vtk"
+
+
+def write_analysis_vtk(result, path: str | os.PathLike) -> Path:
+    """The DC or AC fields as a legacy binary VTK file beside the electrostatic one (SI units).
+
+    Point data at the corner vertices: DC ``V_dc``; AC ``V_real`` and ``V_imag`` (peak phasor, V). Cell
+    data: ``E_dc`` (centroid, V/m) and ``E_dc_magnitude_peak``, or ``E_peak_over_period`` (V/m);
+    ``loss_density`` (W/m^3, time average for AC); ``conductivity`` (S/m, DC: as solved; AC: sigma + omega
+    eps tan(delta)); ``region_id``. The mapped exterior of an open-space circle is left out.
+    """
+    import meshio
+
+    from .errors import ReportError
+
+    extra, problem = result.conduction, result.problem
+    mesh = problem.section.mesh
+    n = mesh.nvertices
+    points = np.zeros((n, 3))
+    points[:, :2] = mesh.p[:, :n].T
+    if isinstance(extra, DCResult):
+        centroid = np.zeros((mesh.nelements, 3))
+        centroid[:, :2] = extra.E.mean(axis=1)
+        point_data = {"V_dc": extra.potential[:n]}
+        cells = {"E_dc": centroid, "E_dc_magnitude_peak": extra.E_magnitude.max(axis=1),
+                 "loss_density": extra.conductivity * (extra.E_magnitude**2).mean(axis=1),
+                 "conductivity": extra.conductivity}
+    else:
+        from .conduction import element_values
+
+        omega = 2 * math.pi * extra.frequency
+        sigma_eff = element_values(problem, lambda m: m.conductivity or 0.0) + omega * epsilon_0 \
+            * problem.relative_permittivity * element_values(problem, lambda m: m.loss_tangent or 0.0)
+        point_data = {"V_real": extra.potential[:n].real, "V_imag": extra.potential[:n].imag}
+        cells = {"E_peak_over_period": extra.E_peak.max(axis=1), "loss_density": extra.loss_density,
+                 "conductivity": sigma_eff}
+    cells["region_id"] = problem.section.region_of_element.astype(np.int32)
+    drawn = ~problem.section.exterior
+    grid = meshio.Mesh(points, [("triangle", np.ascontiguousarray(mesh.t[:, drawn].T, dtype=np.int64))],
+                       point_data={k: np.ascontiguousarray(v, dtype=np.float64) for k, v in point_data.items()},
+                       cell_data={k: [np.ascontiguousarray(v[drawn])] for k, v in cells.items()})
+    path = Path(path)
+    try:
+        meshio.vtk.write(path, grid, binary=True, fmt_version="4.2")
+    except OSError as exc:
+        raise ReportError(f"cannot write the VTK file {str(path)!r}: {exc.strerror or exc}; "
+                          "check that its folder exists and is writable") from None
+    return path

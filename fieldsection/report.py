@@ -95,6 +95,10 @@ def write_report(
         if on_step:
             on_step(FIELDS_FILE)
         write_vtk(result.problem, result.solution, result.fields, result.hotspots, staging / FIELDS_FILE)
+        if result.conduction is not None:  # the DC or AC fields beside the electrostatic ones
+            from .analysis_report import ANALYSIS_FIELDS_FILE, write_analysis_vtk
+
+            write_analysis_vtk(result, staging / ANALYSIS_FIELDS_FILE)
         (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default), encoding="utf-8")
         (staging / "report.html").write_text(_render_html(results, figure_list), encoding="utf-8")
         _replace_folder(staging, target)

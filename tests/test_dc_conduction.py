@@ -253,6 +253,9 @@ def test_the_dc_base_case_runs(tmp_path, capsys):
     results = json.loads((folder / "results.json").read_text())
     assert results["analysis"]["kind"] == "dc"
     assert (folder / "dc_field.png").is_file() and (folder / "dc_loss.png").is_file()
+    import meshio
+    grid = meshio.read(folder / "analysis_fields.vtk")
+    assert np.allclose(grid.cell_data["E_dc_magnitude_peak"][0], 1e6, rtol=1e-9)  # 1 kV over 1 mm, uniform
     assert "Analysis: DC steady conduction" in (folder / "report.html").read_text()
     # 1 kV over 1 mm of 1e-15 S/m: J = 1e-9 A/m^2, times the 10 mm width: 1e-11 A/m (Ohm's law)
     assert results["analysis"]["leakage_current_A_per_m"]["top"] == pytest.approx(1e-11, rel=1e-9)
