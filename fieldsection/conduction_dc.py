@@ -255,6 +255,10 @@ def analyse_dc(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
         warnings.append(f"the DC field differs strongly from the electrostatic one (peak |E| DC / electrostatic: "
                         f"{listed}); under DC the conductivities, not the permittivities, share the voltage, and "
                         "they depend strongly on temperature and field")
+    gases = sorted(name for name, m in problem.material_of_region.items() if m.kind == "gas")
+    if gases:
+        warnings.append(f"gas regions {', '.join(gases)} are taken as ohmic conductors; a gas conducts by ions "
+                        "that saturate at low field, so its DC field here is a rough estimate only")
     unknown = sorted(r.region for r in regions.values() if r.dc_strength is None)
     if unknown:
         warnings.append(f"no DC strength known for {', '.join(unknown)}: the DC peak is not checked against a "

@@ -354,6 +354,7 @@ def test_shipped_busbar_under_dc():
     faces = {frozenset((f.region_a, f.region_b)): f for f in dc.interfaces}
     assert abs(faces[frozenset(("film", "housing"))].free_charge) > 0
     assert dc.currents[0] == pytest.approx(-dc.currents[1], rel=1e-3)  # what leaves one bar enters the other
+    assert any(w.startswith("gas regions air, air_pocket are taken as ohmic") for w in dc.warnings)
 
 
 # ---------------------------------------------------------------- bodies of revolution and open space
