@@ -93,8 +93,12 @@ class TemperatureProfile:
     def describe(self) -> str:
         if self.start is None:
             return f"{self.at_start:g} degC"
-        how = "along the line" if self.along == "line" else "in the distance from"
-        return (f"linear {how} ({self.start[0] * 1e3:g}, {self.start[1] * 1e3:g}) mm -> "
+        if self.along == "radius":
+            outer = math.hypot(self.end[0] - self.start[0], self.end[1] - self.start[1])
+            return (f"linear in the distance from ({self.start[0] * 1e3:g}, {self.start[1] * 1e3:g}) mm: "
+                    f"{self.at_start:g} degC at {self.inner_radius * 1e3:g} mm to {self.at_end:g} degC at "
+                    f"{outer * 1e3:g} mm")
+        return (f"linear along the line ({self.start[0] * 1e3:g}, {self.start[1] * 1e3:g}) mm -> "
                 f"({self.end[0] * 1e3:g}, {self.end[1] * 1e3:g}) mm, {self.at_start:g} -> {self.at_end:g} degC")
 
 

@@ -93,6 +93,7 @@ def _dc(result, dc: DCResult) -> dict[str, Any]:
                 "region": r.region,
                 "material": r.material,
                 "peak_E_kV_per_mm": r.peak_E * 1e-6,
+                "location_mm": _mm(r.location),
                 "electrostatic_peak_E_kV_per_mm": r.electrostatic_peak_E * 1e-6,
                 "ratio_dc_to_electrostatic": _num(r.ratio_to_electrostatic),
                 "dc_strength_kV_per_mm": _num(r.dc_strength, 1e-6),
@@ -114,11 +115,35 @@ def _dc(result, dc: DCResult) -> dict[str, Any]:
                 for i in dc.interfaces
             ],
         },
+        "hotspots_against_dc_strength": _hotspots(dc.screening),
         "polarity_reversal": "the field right after the voltage is reversed (from the DC steady state, faster than "
                              "eps/sigma): the DC field minus twice the electrostatic field",
         "differs_factor": DIFFERS_FACTOR,
         "warnings": list(dc.warnings),
     }
+
+
+def _mm(point) -> list[float]:
+    return [float(point[0]) * 1e3, float(point[1]) * 1e3]
+
+
+def _hotspots(screening) -> list[dict[str, Any]]:
+    """The flagged regions of a screening, highest share of strength first (no certificate: one mesh)."""
+    if screening is None:
+        return []
+    return [
+        {
+            "rank": k + 1,
+            "region": h.region,
+            "material": h.material,
+            "peak_E_kV_per_mm": h.peak_E * 1e-6,
+            "fraction_of_strength": h.utilisation,
+            "location_mm": _mm(h.location),
+            "area_mm2": h.area * 1e6,
+            "nearest_electrode": h.nearest_electrode,
+        }
+        for k, h in enumerate(screening.hotspots)
+    ]
 
 
 def _phasor(z: complex) -> dict[str, float]:
@@ -152,6 +177,7 @@ def _ac(result, ac: ACResult) -> dict[str, Any]:
                 "region": r.region,
                 "material": r.material,
                 "peak_E_over_period_kV_per_mm": r.peak_E * 1e-6,
+                "location_mm": _mm(r.location),
                 "electrostatic_peak_E_kV_per_mm": r.electrostatic_peak_E * 1e-6,
                 "dielectric_strength_kV_per_mm": _num(r.dielectric_strength, 1e-6),
                 "fraction_of_strength": r.utilisation,
@@ -161,6 +187,7 @@ def _ac(result, ac: ACResult) -> dict[str, Any]:
             }
             for r in ac.regions.values()
         ],
+        "hotspots": _hotspots(ac.screening),
         "notes": list(ac.notes),
     }
 

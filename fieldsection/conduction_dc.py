@@ -19,7 +19,7 @@ Per-metre values for a planar model, whole-body values for an axisymmetric one; 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Mapping
 
 import numpy as np
@@ -32,6 +32,7 @@ from .conduction import (as_solution, coefficient_points, conductor_facets, elem
                          region_quadratic, stiffness_with, vertex_field, with_stiffness)
 from .errors import SolverError
 from .fields import outward_flux
+from .hotspots import HotspotResult, find_hotspots
 from .problem import AssembledProblem, conductor_indicator
 from .solve import FactorisedSystem, solve
 
@@ -53,6 +54,7 @@ class RegionDC:
     conductivity: tuple[float, float]  # S/m, least and largest over the region's elements
     joule_loss: float  # W/m (planar) or W (axisymmetric)
     reversal_peak_E: float = 0.0  # V/m, right after a polarity reversal from the DC steady state (same measure)
+    location: tuple[float, float] = (math.nan, math.nan)  # m, where peak_E is
 
     @property
     def utilisation(self) -> float | None:
@@ -103,6 +105,8 @@ class DCResult:
     warnings: tuple[str, ...]
     temperatures: Mapping[str, str]  # region -> description of its temperature
     solver: str
+    #: the hotspot screening of the DC field against each material's DC strength (no DC strength: not screened)
+    screening: HotspotResult | None = None
 
 
 def _anderson(picard, scale: float, tolerance: float, max_iterations: int) -> tuple[np.ndarray, int, float]:
@@ -230,6 +234,10 @@ def analyse_dc(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
     eps = epsilon_0 * problem.relative_permittivity
 
     peaks = region_peaks(problem, magnitude)
+    against_dc = replace(problem, material_of_region={r: replace(m, dielectric_strength=m.dc_strength)
+                                                      for r, m in problem.material_of_region.items()})
+    screening = find_hotspots(against_dc, magnitude, case.hotspot_fraction)
+    where = {p.region: p.location for p in screening.region_peaks}
     electrostatic = region_peaks(problem, electrostatic_E_magnitude)
     # right after a polarity reversal (+V to -V in a time short against eps/sigma) the free charge has not
     # moved: the DC steady field plus the capacitive field of the step -2V
@@ -244,7 +252,7 @@ def analyse_dc(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
         tau = eps[elements] / s
         regions[name] = RegionDC(name, material.name, peaks[name], electrostatic[name], material.dc_strength,
                                  (float(tau.min()), float(tau.max())), (float(s.min()), float(s.max())),
-                                 copies * joule[name], reversal[name])
+                                 copies * joule[name], reversal[name], where[name])
 
     interfaces = _interface_charges(problem, u, eps, copies)
     warnings = []
@@ -277,7 +285,7 @@ def analyse_dc(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
     return DCResult(u, E, magnitude, sigma_element, nonlinear, iterations, change if nonlinear else 0.0,
                     settings.tolerance, tuple(c.name for c in every), currents, conductance,
                     tuple(c.name for c in dc_problem.fixed), regions, interfaces, loss, relaxation, tuple(warnings),
-                    temperatures, solver_name)
+                    temperatures, solver_name, screening)
 
 
 def _interface_charges(problem: AssembledProblem, u: np.ndarray, eps: np.ndarray, copies: int

@@ -29,6 +29,7 @@ from scipy.constants import epsilon_0
 from .case import Case
 from .conduction import element_values, region_peaks, region_quadratic, stiffness_with, vertex_field, with_stiffness
 from .errors import SolverError
+from .hotspots import HotspotResult, find_hotspots
 from .problem import AssembledProblem, conductor_indicator
 from .solve import FactorisedSystem
 
@@ -48,6 +49,7 @@ class RegionAC:
     effective_conductivity: float  # S/m, sigma + omega eps tan(d)
     loss: float  # W/m (planar) or W, time average
     elements_over_fraction: int  # elements whose peak reaches hotspot_fraction x strength
+    location: tuple[float, float] = (math.nan, math.nan)  # m, where peak_E is
 
     @property
     def utilisation(self) -> float | None:
@@ -69,6 +71,7 @@ class ACResult:
     loss_from_regions: float  # the sum of the regions' losses (a check on the same number)
     notes: tuple[str, ...]
     solver: str = ""
+    screening: HotspotResult | None = None  # hotspots of the peak over a period against the dielectric strength
 
     @property
     def capacitance(self) -> np.ndarray:
@@ -185,6 +188,8 @@ def analyse_ac(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
     mean_square = 0.5 * ((E_re**2).sum(axis=-1) + (E_im**2).sum(axis=-1)).mean(axis=1)  # time average of |E|^2
     loss_density = sigma_eff * mean_square
     peaks = region_peaks(problem, E_peak)
+    screening = find_hotspots(problem, E_peak, case.hotspot_fraction)
+    where = {p.region: p.location for p in screening.region_peaks}
     electrostatic = region_peaks(problem, electrostatic_E_magnitude)
     losses = region_quadratic(problem, sigma_eff, u)
     section = problem.section
@@ -195,7 +200,7 @@ def analyse_ac(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
         over = 0 if strength is None else int((E_peak[elements].max(axis=1) >= case.hotspot_fraction * strength).sum())
         regions[name] = RegionAC(name, material.name, peaks[name], electrostatic[name], strength,
                                  float(sigma_eff[elements].mean()) if elements.size else 0.0,
-                                 0.5 * copies * losses[name], over)
+                                 0.5 * copies * losses[name], over, where[name])
     notes = []
     if any(settings.phases_deg.values()):
         notes.append("the electrostatic sections of this report are the instant t = 0, each electrode at "
@@ -206,4 +211,4 @@ def analyse_ac(case: Case, problem: AssembledProblem, electrostatic_E_magnitude:
         notes.append(f"no conductivity or loss tangent for {', '.join(lossless)}: taken as lossless")
     return ACResult(settings.frequency, u, E_peak, loss_density, tuple(c.name for c in fixed), phasors, admittance,
                     currents, regions, loss, float(sum(r.loss for r in regions.values())), tuple(notes),
-                    f"{system.name}, {system.iterations} iterations")
+                    f"{system.name}, {system.iterations} iterations", screening)

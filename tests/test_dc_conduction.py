@@ -459,3 +459,16 @@ def test_temperature_profile_checks_its_values_in_python():
         TemperatureProfile(20.0, 30.0, (0.0, 0.0), (0.0, 0.0))
     with pytest.raises(CaseFileError, match=r"must be finite numbers"):
         TemperatureProfile(float("nan"))
+
+
+def test_dc_hotspots_against_the_dc_strength():
+    # two-layer coax under DC (closed form above): the inner layer's peak E = V/(sigma1 r1 R) at r = 1 mm;
+    # with a DC strength just below twice it, the inner layer is flagged at >= 50 %, the outer one is not
+    V = 1000.0
+    resistance = math.log(R2 / R1) / S1 + math.log(R3 / R2) / S2
+    e_inner = V / (S1 * R1 * resistance)
+    regions = {"inner_layer": Material("inner", ER1, None, conductivity=S1, dc_strength=1.9 * e_inner),
+               "outer_layer": Material("outer", ER2, None, conductivity=S2, dc_strength=1.9 * e_inner)}
+    dc = analyse(coax_case("coaxial_two_layer.geo", regions, {"lc": 0.2})).conduction
+    assert {h.region for h in dc.screening.hotspots} == {"inner_layer"}
+    assert math.hypot(*dc.regions["inner_layer"].location) == pytest.approx(R1, rel=1e-6)
