@@ -14,6 +14,7 @@ The case file schema (documented in the README) is fieldsection's own::
     [mesh]          size, near_electrodes, element_order, curved, refinements, [mesh.region_sizes]
     [refinement]    adaptive, capacitance_tolerance, field_tolerance, max_dofs, max_passes
     [solver]        method = "auto" | "direct" | "iterative"
+    [analysis]      kind = "electrostatic" | "dc" | "ac", and their settings (analysis.py)
 
 Everything here is validated without touching the geometry; names are checked against the
 geometry's physical groups in the mesh stage.
@@ -29,6 +30,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Callable, Mapping
 
+from .analysis import AnalysisSettings, parse_analysis
 from .errors import CaseFileError, FieldSectionError
 from .materials import Material, lookup_material, material_from_mapping
 from .units import to_si
@@ -165,6 +167,7 @@ class Case:
     gas_pressure: float = 101_325.0  # Pa, for the partial-discharge screening of gas regions
     refinement: Refinement = field(default_factory=Refinement)
     solver: str = "auto"  # linear solver: a key of SOLVER_METHODS
+    analysis: AnalysisSettings = field(default_factory=AnalysisSettings)  # [analysis]: electrostatic, dc or ac
 
     def __post_init__(self) -> None:
         if not self.regions:
@@ -235,7 +238,7 @@ class Case:
 
 
 _TOP_KEYS = {"title", "geometry", "regions", "materials", "electrodes", "boundary", "hotspots", "mesh", "symmetry",
-             "refinement", "solver"}
+             "refinement", "solver", "analysis"}
 
 
 def _table(data: Mapping[str, Any], key: str, where: str) -> Mapping[str, Any]:
@@ -483,6 +486,7 @@ def case_from_mapping(
         gas_pressure=to_si(hotspots.get("gas_pressure", 101_325.0), "pressure", "hotspots.gas_pressure"),
         refinement=refinement,
         solver=_text(solver_table.get("method", "auto"), "solver.method", SOLVER_METHODS),
+        analysis=parse_analysis(data.get("analysis"), where),
     )
 
 

@@ -134,17 +134,22 @@ def _summary(result, folder: Path) -> None:
             f", ±{cert.relative_error:.1e}]" if cert.relative_error is not None else "]")
         print(f"peak |E| in {peak.region} ({peak.material}): {peak.peak_E * 1e-6:.4g} kV/mm{share}{status}")
     print(f"hotspots at >= {100 * result.case.hotspot_fraction:.0f} % of strength: {len(result.hotspots.hotspots)}")
+    if result.conduction is not None:
+        from .analysis_report import summary_lines
+
+        print("\n".join(summary_lines(result)))
     print("a design aid, not a certification: margins and partial-discharge tests remain the designer's duty")
 
 
 def _materials() -> int:
     from .materials import shipped_materials
 
-    print(f"{'name':20s} {'kind':7s} {'eps_r':>8s} {'strength (kV/mm)':>17s} {'tan delta':>10s}")
+    print(f"{'name':20s} {'kind':7s} {'eps_r':>8s} {'strength (kV/mm)':>17s} {'tan delta':>10s} {'sigma (S/m)':>12s}")
     for m in shipped_materials().values():
         strength = "unknown" if m.dielectric_strength is None else f"{m.dielectric_strength * 1e-6:.4g}"
         tan_d = "-" if m.loss_tangent is None else f"{m.loss_tangent:.2g}"
-        print(f"{m.name:20s} {m.kind:7s} {m.relative_permittivity:8.4g} {strength:>17s} {tan_d:>10s}")
+        sigma = "-" if m.conductivity is None else f"{m.conductivity:.2g}"
+        print(f"{m.name:20s} {m.kind:7s} {m.relative_permittivity:8.4g} {strength:>17s} {tan_d:>10s} {sigma:>12s}")
     return EXIT_OK
 
 

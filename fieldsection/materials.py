@@ -31,6 +31,14 @@ class Material:
     loss_tangent: float | None = None
     source: str = ""
     paschen: tuple[float, float, float] | None = None  # A (1/(Pa m)), B (V/(Pa m)), secondary emission
+    #: S/m at ``conductivity_reference_temperature`` and zero field; None: unknown (needed by the DC analysis)
+    conductivity: float | None = None
+    #: sigma(T, E) = conductivity * exp(alpha (T - T_ref) + beta |E|), alpha in 1/K, beta in m/V (conduction_dc.py)
+    conductivity_alpha: float = 0.0
+    conductivity_beta: float = 0.0
+    conductivity_reference_temperature: float = 20.0  # degC
+    dc_strength: float | None = None  # V/m, the strength under steady DC stress; None: unknown
+    conductivity_source: str = ""  # where the conduction values come from
 
     def __post_init__(self) -> None:
         er = self.relative_permittivity
@@ -56,6 +64,20 @@ class Material:
         tan_d = self.loss_tangent
         if tan_d is not None and not (math.isfinite(tan_d) and tan_d >= 0):
             raise MaterialError(f"material {self.name!r}: loss tangent {tan_d!r} must be >= 0, or omit it")
+        sigma = self.conductivity
+        if sigma is not None and not (math.isfinite(sigma) and sigma > 0):
+            raise MaterialError(f"material {self.name!r}: conductivity {sigma!r} S/m must be positive, or omit it")
+        if self.dc_strength is not None and not (math.isfinite(self.dc_strength) and self.dc_strength > 0):
+            raise MaterialError(f"material {self.name!r}: DC strength {self.dc_strength!r} V/m must be positive, "
+                                "or omit it")
+        for label, value in [("conductivity_alpha_per_K", self.conductivity_alpha),
+                             ("conductivity_beta", self.conductivity_beta),
+                             ("conductivity_reference_temperature_degC", self.conductivity_reference_temperature)]:
+            if not math.isfinite(value):
+                raise MaterialError(f"material {self.name!r}: {label} {value!r} is not a finite number")
+        if self.conductivity_beta < 0 or self.conductivity_alpha < 0:
+            raise MaterialError(f"material {self.name!r}: conductivity_alpha_per_K and conductivity_beta must be >= 0 "
+                                "(conductivity that falls with temperature or field is not modelled)")
 
 
 _ALLOWED_KEYS = {
@@ -68,6 +90,13 @@ _ALLOWED_KEYS = {
     "paschen_A_per_kPa_cm",
     "paschen_B_V_per_kPa_cm",
     "secondary_emission",
+    "conductivity",
+    "conductivity_alpha_per_K",
+    "conductivity_beta",
+    "conductivity_reference_temperature_degC",
+    "dc_strength",
+    "dc_strength_kV_per_mm",
+    "conductivity_source",
 }
 _PASCHEN_KEYS = ("paschen_A_per_kPa_cm", "paschen_B_V_per_kPa_cm", "secondary_emission")
 
@@ -104,6 +133,7 @@ def material_from_mapping(name: str, entry: Mapping[str, Any], where: str) -> Ma
             raise MaterialError(f"{where}: Paschen constants must be positive numbers (the secondary emission "
                                 f"coefficient below 1), got A = {a!r}, B = {b!r}, gamma = {gamma!r}")
         paschen = (a / 1e3 / 1e-2, b / 1e3 / 1e-2, float(gamma))  # per kPa cm -> per Pa m
+    conduction = _conduction(entry, where)
     return Material(
         name=name,
         relative_permittivity=float(er),
@@ -112,6 +142,7 @@ def material_from_mapping(name: str, entry: Mapping[str, Any], where: str) -> Ma
         loss_tangent=tan_d,
         source=str(entry.get("source", "defined in the case file")),
         paschen=paschen,
+        **conduction,
     )
 
 
@@ -123,6 +154,38 @@ def _plain_number(entry: Mapping[str, Any], key: str, where: str) -> float:
     if not math.isfinite(value):
         raise MaterialError(f"{where}.{key} = {value!r}: must be a finite number")
     return float(value)
+
+
+def _conduction(entry: Mapping[str, Any], where: str) -> dict[str, Any]:
+    """The optional conduction keys of a material table, as :class:`Material` fields (SI)."""
+    def number(key: str) -> float:
+        return _plain_number(entry, key, where)
+
+    out: dict[str, Any] = {}
+    if "conductivity" in entry:
+        out["conductivity"] = to_si(entry["conductivity"], "conductivity", f"{where}.conductivity")
+    if "conductivity_alpha_per_K" in entry:
+        out["conductivity_alpha"] = number("conductivity_alpha_per_K")
+    if "conductivity_beta" in entry:  # "0.03 mm/kV", or a bare number in m/V
+        out["conductivity_beta"] = to_si(entry["conductivity_beta"], "inverse field", f"{where}.conductivity_beta")
+    if "conductivity_reference_temperature_degC" in entry:
+        out["conductivity_reference_temperature"] = number("conductivity_reference_temperature_degC")
+    if ("conductivity_alpha" in out or "conductivity_beta" in out) and "conductivity" not in out:
+        raise MaterialError(f"{where}: conductivity_alpha_per_K / conductivity_beta need the conductivity itself "
+                            "(e.g. conductivity = \"1e-15 S/m\")")
+    if "dc_strength" in entry and "dc_strength_kV_per_mm" in entry:
+        raise MaterialError(f"{where}: give either dc_strength or dc_strength_kV_per_mm, not both")
+    if "dc_strength" in entry:
+        out["dc_strength"] = to_si(entry["dc_strength"], "field", f"{where}.dc_strength")
+    elif "dc_strength_kV_per_mm" in entry:
+        out["dc_strength"] = number("dc_strength_kV_per_mm") * 1e6
+    if "conductivity_source" in entry:
+        if not isinstance(entry["conductivity_source"], str):
+            raise MaterialError(f"{where}: conductivity_source must be a string, got {entry['conductivity_source']!r}")
+        out["conductivity_source"] = entry["conductivity_source"]
+    elif "conductivity" in out:
+        out["conductivity_source"] = "defined in the case file"
+    return out
 
 
 @lru_cache(maxsize=1)

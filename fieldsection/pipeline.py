@@ -15,6 +15,7 @@ import numpy as np
 from scipy.spatial import cKDTree
 
 from .adapt import PassRecord, region_vertex_fields, wanted_sizes
+from .analysis import check_against_case, electrostatic_case, run_analysis
 from .capacitance import CapacitanceResult, compute_capacitance
 from .case import Case
 from .certificate import SINGULAR, PeakCertificate, certify
@@ -73,6 +74,8 @@ class SectionResult(_Computed):
     certificates: Certificates | None = None
     stop_reason: str = ""
     corona: tuple[CoronaCheck, ...] = ()
+    #: the DC (conduction_dc.DCResult) or AC (harmonic_ac.ACResult) result of [analysis], on the last mesh
+    conduction: object | None = None
 
 
 @dataclass(frozen=True)
@@ -85,6 +88,9 @@ class _Pass(_Computed):
 def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> SectionResult:
     """Run every computing stage for ``case``; ``on_stage(name)`` is called as each stage starts."""
     seconds: dict[str, float] = {}
+    if case.analysis.kind != "electrostatic":  # the analysis's names and materials, before any meshing
+        check_against_case(case.analysis, case.regions, case.electrodes, case.floating)
+    given, case = case, electrostatic_case(case)  # AC with phases: the electrostatic solution is the instant t = 0
 
     def stage(name: str, work: Callable[[], object]):
         if on_stage is not None:
@@ -148,10 +154,14 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
         hotspots, certificates = peaks
     gas_gaps = stage("gas gaps", lambda: screen_gas_gaps(problem, last.fields, case.gas_pressure))
     corona = stage("corona", lambda: screen_corona(problem, last.peak_search_field, case.gas_pressure))
+    conduction = None
+    if case.analysis.kind != "electrostatic":
+        conduction = stage(case.analysis.kind, lambda: run_analysis(given, problem, last.fields.E_magnitude,
+                                                                             last.solution.potential))
     computed = {f.name: getattr(last, f.name) for f in dataclass_fields(_Computed)}
     return SectionResult(**computed, case=case, hotspots=hotspots, gas_gaps=gas_gaps, stage_seconds=seconds,
                          passes=tuple(p.record for p in passes), certificates=certificates,
-                         stop_reason=stop_reason, corona=corona)
+                         stop_reason=stop_reason, corona=corona, conduction=conduction)
 
 
 def _one_pass(case: Case, size_field: SizeField | None, stage) -> _Pass:

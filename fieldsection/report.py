@@ -100,6 +100,10 @@ def write_report(
                 ("bound_charge.png", "Bound surface charge density on material faces",
                  lambda p: fig.plot_bound_charge(result.problem, result.charges, p)),
             ]
+            if result.conduction is not None:  # the DC or AC analysis's |E| and loss density
+                from .analysis_report import analysis_figures
+
+                plots += analysis_figures(result)
             try:
                 for name, caption, draw in plots:
                     if on_step:
@@ -111,6 +115,10 @@ def write_report(
         if on_step:
             on_step(FIELDS_FILE)
         write_vtk(result.problem, result.solution, result.fields, result.hotspots, staging / FIELDS_FILE)
+        if result.conduction is not None:  # the DC or AC fields beside the electrostatic ones
+            from .analysis_report import ANALYSIS_FIELDS_FILE, write_analysis_vtk
+
+            write_analysis_vtk(result, staging / ANALYSIS_FIELDS_FILE)
         (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default, allow_nan=False),
                                              encoding="utf-8")
         (staging / "report.html").write_text(_render_html(results, figure_list), encoding="utf-8")

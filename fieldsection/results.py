@@ -132,6 +132,10 @@ def build_results(result: SectionResult) -> dict[str, Any]:
     results = _build(result)
     if result.case.model != "planar":
         results = _whole_body(results)
+    if result.conduction is not None:  # a DC or AC analysis ran beside the electrostatic one (names its own keys)
+        from .analysis_report import analysis_results
+
+        results["analysis"] = analysis_results(result)
     missing: list[str] = []
     results = _finite_only(results, "", missing)
     if missing:

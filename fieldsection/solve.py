@@ -253,6 +253,15 @@ class FactorisedSystem:
     def solver_name(self) -> str:
         return self._backend.name
 
+    @property
+    def prolongation(self) -> sp.csr_matrix:
+        """T: the reduced unknowns (free DOFs, then one per floating conductor) to full DOF vectors."""
+        return self._T
+
+    def solve_reduced(self, rhs: np.ndarray) -> np.ndarray:
+        """(T^T K T)^-1 rhs for real right-hand sides (n reduced, k): the factorisation applied as it is."""
+        return self._backend.solve(rhs).reshape(rhs.shape)
+
     def close(self) -> None:
         """Release the factorisation (PARDISO keeps it in MKL's memory until told)."""
         self._backend.close()

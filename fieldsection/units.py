@@ -22,6 +22,9 @@ SI_UNITS = {
     "charge": "C/m",  # per unit length of a planar section
     "total charge": "C",  # of an axisymmetric body
     "pressure": "Pa",
+    "conductivity": "S/m",
+    "frequency": "Hz",
+    "inverse field": "m/V",  # the field coefficient beta of sigma(T, E) = sigma0 exp(alpha T + beta E)
     "dimensionless": "",
 }
 
