@@ -28,6 +28,8 @@ from .splitting import Snap, split_into_four, with_mid_edge_nodes
 
 #: seconds one meshing may take before it is stopped (a mistyped size can ask for billions of elements)
 MESHING_TIME_LIMIT = 3600.0
+#: two curves that share no point must stay at least this share of the geometry's extent apart
+NARROWEST_RELATIVE_GAP = 1e-6
 #: smallest mesh size accepted, as a share of the geometry's extent
 SMALLEST_RELATIVE_SIZE = 1e-7
 #: with ``refinements`` left to the tool: a mesh predicted above this many nodes is meshed coarser and split
@@ -389,6 +391,7 @@ def _node_estimate(gmsh, settings: MeshSettings, scale: float, surfaces: dict, c
         point_size = dict(zip(points, gmsh.model.mesh.getSizes([(0, t) for t in points])))
     samples = np.linspace(0.0, 1.0, 33)
     shape: dict[int, tuple[float, float, float]] = {}  # curve -> (length, integral of x dy, largest size)
+    shape_samples: dict[int, np.ndarray] = {}
     for _, curve in gmsh.model.getEntities(1):
         low, high = gmsh.model.getParametrizationBounds(1, curve)
         xyz = np.asarray(gmsh.model.getValue(1, curve, low[0] + samples * (high[0] - low[0]))).reshape(-1, 3)
@@ -397,6 +400,9 @@ def _node_estimate(gmsh, settings: MeshSettings, scale: float, surfaces: dict, c
         bound = max(ends) if ends and min(ends) > 0 else math.inf
         x_dy = float(np.sum(0.5 * (xyz[1:, 0] + xyz[:-1, 0]) * steps[:, 1]))
         shape[curve] = (float(np.hypot(*steps.T).sum()), x_dy, min(bound, largest))
+        shape_samples[curve] = xyz[:, :2]
+
+    _refuse_near_misses(gmsh, shape_samples, curves, scale)
 
     surface_sizings = []
     for name, tags in surfaces.items():
@@ -420,6 +426,58 @@ def _node_estimate(gmsh, settings: MeshSettings, scale: float, surfaces: dict, c
             size = min(size, near / scale)
         curve_sizings.append(CurveSizing(label, length * scale, in_metres(size)))
     return estimate_nodes(surface_sizings, curve_sizings)
+
+
+def _refuse_near_misses(gmsh, samples: dict[int, np.ndarray], curves: dict, scale: float) -> None:
+    """Refuse two curves that share no point yet come closer than ``NARROWEST_RELATIVE_GAP`` of the extent.
+
+    Electrodes a nanometre apart on a centimetre model, or a sliver of that thickness, cannot be meshed
+    with sane elements (gmsh may not even finish). The distance is measured from every sample point of a
+    curve to the nearest segments of the other curves' sampled polylines.
+    """
+    from scipy.spatial import cKDTree
+
+    tags = np.array(sorted(samples))
+    if tags.size < 2:
+        return
+    counts = np.array([len(samples[t]) for t in tags])
+    points = np.concatenate([samples[t] for t in tags])
+    owner = np.repeat(tags, counts)
+    extent = float(np.ptp(points, axis=0).max())
+    if extent <= 0:
+        return
+    ends = {int(t): {abs(p) for _, p in gmsh.model.getBoundary([(1, int(t))], False, False)} for t in tags}
+    k = min(12, len(points))
+    _, near = cKDTree(points).query(points, k=k)
+    near = near.reshape(len(points), -1)
+    # the segments on either side of each neighbour sample, kept within the neighbour's own curve
+    start = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    first = np.repeat(start, counts)[near]
+    last = np.repeat(start + counts - 1, counts)[near]
+    gaps = np.full(near.shape, np.inf)
+    for a_index, b_index in ((np.maximum(near - 1, first), near), (near, np.minimum(near + 1, last))):
+        a, b = points[a_index], points[b_index]
+        d = b - a
+        length2 = np.maximum((d**2).sum(-1), 1e-300)
+        t = np.clip(((points[:, None, :] - a) * d).sum(-1) / length2, 0.0, 1.0)
+        gaps = np.minimum(gaps, np.hypot(*(points[:, None, :] - (a + t[..., None] * d)).transpose(2, 0, 1)))
+    other = owner[near] != owner[:, None]
+    shared = np.array([[bool(ends[int(i)] & ends[int(j)]) for j in row] for i, row in zip(owner, owner[near])]) \
+        if other.any() else np.zeros_like(other)
+    gaps = np.where(other & ~shared, gaps, np.inf)
+    worst = np.unravel_index(np.argmin(gaps), gaps.shape)
+    gap = float(gaps[worst])
+    if gap >= NARROWEST_RELATIVE_GAP * extent:
+        return
+    names = {tag: name for name, members in curves.items() for tag in members}
+    pair = [int(owner[worst[0]]), int(owner[near][worst])]
+    label = " and ".join(f"curve {t}" + (f" ({names[t]!r})" if t in names else "") for t in pair)
+    x, y = points[worst[0]] * scale * 1e3
+    raise GeometryError(
+        f"{label} come within {gap * scale * 1e3:.3g} mm of each other near ({x:.4g}, {y:.4g}) mm, "
+        f"{gap / extent:.1e} of the model's extent, without meeting: no mesh can resolve that gap; check the "
+        "coordinates and units, draw the parts apart, or join them at a shared point"
+    )
 
 
 def curve_segments(gmsh, index_of: np.ndarray) -> dict[int, np.ndarray]:
