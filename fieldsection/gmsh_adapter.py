@@ -159,6 +159,7 @@ def _isolated(work, *args):
     limits = current_gmsh_limits()
     seconds = limits.seconds or MESHING_TIME_LIMIT
     memory = limits.memory_bytes or int(MESHING_MEMORY_SHARE * machine_memory())
+    share = "" if limits.memory_bytes else f" ({MESHING_MEMORY_SHARE:.0%} of this machine's)"
     context = multiprocessing.get_context("fork")
     receiver, sender = context.Pipe(duplex=False)
     child = context.Process(target=_child, args=(sender, work, args), daemon=True)
@@ -177,7 +178,7 @@ def _isolated(work, *args):
             if used > memory:
                 raise MeshError(
                     f"gmsh (reading the geometry script and meshing) took {used / 2**30:.2f} GiB of memory, over "
-                    f"the limit of {memory / 2**30:.2f} GiB, and was stopped; coarsen the mesh sizes or look for "
+                    f"the limit of {memory / 2**30:.2f} GiB{share}, and was stopped; coarsen the mesh sizes or look for "
                     "huge lists in the script")
         status, payload = receiver.recv()
     except EOFError:
