@@ -119,15 +119,17 @@ REFUSALS: tuple[Refusal, ...] = (
             HIDES_CODE, "has a quote or comment opener that gmsh drops when it skips an If or For block (it would read the "
             "text as commands)",
             check="skip", fix="put a space or a line break before the quote or comment"),
-    Refusal("a string or comment running past the line of a `For` header", HIDES_CODE,
-            "is followed by a string or comment running into the next line, where gmsh restarts each pass of the loop "
-            "(it would read the text as commands)",
+    Refusal("a string or comment running past the line of a `For` header (or a header line over 4000 characters)",
+            HIDES_CODE,
+            "has a string or comment running past its line, or a line over 4000 characters; gmsh restarts each pass "
+            "of the loop at the next line (it would read the text as commands)",
             check="for_restart", fix="end the string or comment on the For line, or start it on the next one"),
 )
 
 #: option categories of gmsh (and ``Field[i].Name`` field options)
 OPTION_CATEGORIES = ("General", "Geometry", "Mesh", "Solver", "PostProcessing", "Print", "View", "Field")
 LONGEST_STRING = 1000
+LONGEST_LINE = 4000  # of a For header's line
 _ALPHA = frozenset(string.ascii_letters + "_")  # gmsh's is_alpha(): digits are not alpha
 
 _LEXEME = re.compile(
@@ -310,7 +312,10 @@ def _for_restart_hazard(script: _Script) -> tuple[int, int] | None:
         if close is None:
             continue
         breaks = [k for k in (text.find("\n", tokens[close].start), text.find("\r", tokens[close].start)) if k >= 0]
-        if breaks and min(breaks) + 1 < len(text) and script.inside[min(breaks) + 1]:
+        restart = min(breaks, default=len(text)) + 1
+        line_start = max(text.rfind("\n", 0, tokens[close].start), text.rfind("\r", 0, tokens[close].start)) + 1
+        # gmsh reads a line at a time, but a line longer than its buffer (16 kB) in pieces
+        if restart < len(text) and script.inside[restart] or restart - line_start > LONGEST_LINE:
             return token.start, tokens[close].end
     return None
 

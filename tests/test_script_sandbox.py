@@ -111,8 +111,9 @@ REFUSED = [
     ("skip: E//", 'If(0)\nE// EndIf System "touch {m}";\nEndIf', r"line 18: 'E//' has a quote or comment opener"),
     ("skip: F quote", "For (2:1)\nF'EndFor' System \"touch {m}\"; //'\nEndFor", r"line 18: 'F'E' has a quote or"),
     ("For restart comment", 'For i In {{1:2}} /*\nSystem "touch {m}"; */\nEndFor',
-     r"line 17: 'For i In \{1:2\}' is followed by a string or comment running into the next line"),
-    ("For restart string", 'For (1:2) s = "\nSystem \\"touch {m}\\"; //";\nEndFor', r"line 17: 'For \(1:2\)' is followed"),
+     r"line 17: 'For i In \{1:2\}' has a string or comment running past its line"),
+    ("For restart string", 'For (1:2) s = "\nSystem \\"touch {m}\\"; //";\nEndFor', r"line 17: 'For \(1:2\)' has a string"),
+    ("For header line too long", "For (1:2)" + " " * 4000 + "x = 1;\nEndFor", r"line 17: 'For \(1:2\)' has a string"),
 ]
 
 ENDING = ["Exit;", "Abort;", "exit;", "General.AbortOnError = 4;", "General.AbortOnError++;"]
