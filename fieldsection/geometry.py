@@ -57,10 +57,12 @@ class Refusal:
 
     def message(self, script: Path, line: int, construct: str) -> str:
         fix = self.fix if self.always else f"{self.fix}, {_TRUST}"
-        return f"geometry script {script.name}, line {line}: '{construct}' {self.reason}; refused. {fix[0].upper()}{fix[1:]}"
+        return (f"geometry script {script.name}, line {line}: '{construct}' {self.reason}; refused. "
+                f"{fix[0].upper()}{fix[1:]}")
 
 
-_NOT_SCRIPT = "reads a file that is not a geometry script (CAD, mesh or view import; gmsh reads unknown types as scripts)"
+_NOT_SCRIPT = ("reads a file that is not a geometry script (CAD, mesh or view import; gmsh reads unknown types "
+               "as scripts)")
 _FORMAT = "with a format that is not a literal text with only %g and %e numbers"
 
 REFUSALS: tuple[Refusal, ...] = (
@@ -97,13 +99,15 @@ REFUSALS: tuple[Refusal, ...] = (
     Refusal("`S2N`, `StringToName`", DEFINES_CODE, "turns a string into a command or variable name",
             words="S2N|StringToName"),
     Refusal("`Include` or `Merge` of a file not named literally", DEFINES_CODE, "must name its file literally",
-            check="literal_file", fix='name the file literally (e.g. Include "part.geo";) so that it can be checked too'),
+            check="literal_file",
+            fix='name the file literally (e.g. Include "part.geo";) so that it can be checked too'),
     Refusal("`GmshOption`", DEFINES_CODE, "binds a parameter to any gmsh option", words="GmshOption"),
     Refusal(f"`Printf`, `Sprintf`, `Error`, `Warning` {_FORMAT}", DEFINES_CODE,
             "hands its text to C's printf unchecked (gmsh can crash or overwrite memory)", check="format",
             fix="use a literal text whose numbers are %g or %e with at most two-digit widths"),
     Refusal("number-format options (`General.NumberFormat`, `*.AxesFormat*`, `View.Format`)", DEFINES_CODE,
-            "is a C printf format that gmsh uses unchecked", option=r"(?:General|View)\.(?:NumberFormat|Format|AxesFormat\w*)"),
+            "is a C printf format that gmsh uses unchecked",
+            option=r"(?:General|View)\.(?:NumberFormat|Format|AxesFormat\w*)"),
     Refusal("`Exit`, `Abort`", ENDS_PROCESS, "would end the program", words="Exit|Abort", always=True,
             fix="remove it from the script"),
     Refusal("`General.AbortOnError`", ENDS_PROCESS, "can make gmsh end the program on an error",
@@ -113,12 +117,12 @@ REFUSALS: tuple[Refusal, ...] = (
     Refusal("a string of more than 1000 characters", HIDES_CODE,
             "is longer than gmsh's strings of 1023 characters (it would read the rest as commands)",
             check="long_string", fix="split it (StrCat) or shorten it"),
-    Refusal("a NUL character", HIDES_CODE, "ends a string or comment early in gmsh (it would read the rest as commands)",
-            check="nul"),
+    Refusal("a NUL character", HIDES_CODE,
+            "ends a string or comment early in gmsh (it would read the rest as commands)", check="nul"),
     Refusal("a quote or comment right after a word starting with `E`, `F` or `I` (or within four after `If`, `For`)",
-            HIDES_CODE, "has a quote or comment opener that gmsh drops when it skips an If or For block (it would read the "
-            "text as commands)",
-            check="skip", fix="put a space or a line break before the quote or comment"),
+            HIDES_CODE,
+            "has a quote or comment opener that gmsh drops when it skips an If or For block (it would read the text "
+            "as commands)", check="skip", fix="put a space or a line break before the quote or comment"),
     Refusal("a string or comment running past the line of a `For` header (or a header line over 4000 characters)",
             HIDES_CODE,
             "has a string or comment running past its line, or a line over 4000 characters; gmsh restarts each pass "

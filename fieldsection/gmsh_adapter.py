@@ -171,15 +171,15 @@ def _isolated(work, *args):
         while not receiver.poll(max(0.0, min(_WATCH_SECONDS, deadline - time.monotonic()))):
             if time.monotonic() >= deadline:
                 raise MeshError(
-                    f"gmsh (reading the geometry script and meshing) ran longer than the time limit of {seconds:g} s "
-                    "and was stopped; look for an endless loop in the script or coarsen the mesh sizes, or raise "
-                    "the limit with --time-limit SECONDS")
+                    f"gmsh (reading the geometry script and meshing) ran longer than the time limit of "
+                    f"{seconds:g} s and was stopped; look for an endless loop in the script or coarsen the mesh "
+                    "sizes, or raise the limit with --time-limit SECONDS")
             used = anonymous_memory(child.pid) - inherited
             if used > memory:
                 raise MeshError(
                     f"gmsh (reading the geometry script and meshing) took {used / 2**30:.2f} GiB of memory, over "
-                    f"the limit of {memory / 2**30:.2f} GiB{share}, and was stopped; coarsen the mesh sizes or look for "
-                    "huge lists in the script")
+                    f"the limit of {memory / 2**30:.2f} GiB{share}, and was stopped; coarsen the mesh sizes or "
+                    "look for huge lists in the script")
         status, payload = receiver.recv()
     except EOFError:
         child.join()

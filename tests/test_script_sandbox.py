@@ -43,7 +43,8 @@ REFUSED = [
     ("System comment between", 'System/* x */"touch {m}";', r"line 17: 'System' runs"),  # gmsh runs it
     ("System after a number", 'x = 1;2System "touch {m}";', r"line 17: 'System' runs"),
     ("System single quotes", "System 'touch {m}';", r"line 17: 'System' runs"),  # gmsh runs it
-    ("System after a single-quoted //", "Printf('//'); System \"touch {m}\";", r"line 17: 'System' runs"),  # gmsh runs it
+    # gmsh runs it:
+    ("System after a single-quoted //", "Printf('//'); System \"touch {m}\";", r"line 17: 'System' runs"),
     ("System after a backslash", 'Printf("\\"); System "touch {m}"; //");', r"line 17: 'System' runs"),  # gmsh runs it
     ("S2N", 'S2N["System"] "touch {m}";', r"line 17: 'S2N' turns a string into a command"),  # gmsh runs it
     ("StringToName StrCat", 'StringToName[StrCat("Sys", "tem")] "touch {m}";', r"line 17: 'StringToName' turns"),
@@ -60,7 +61,8 @@ REFUSED = [
     ("Merge STEP", 'Merge "part.step";', r"line 17: 'Merge \"part.step\"' reads a file that is not a geometry script"),
     ("Merge text parsed as script", 'Merge "extra.txt";', r"'Merge \"extra.txt\"' reads a file that is not a"),
     ("MergeWithBoundingBox", 'MergeWithBoundingBox "part.brep";', r"'MergeWithBoundingBox \"part.brep\"' reads a"),
-    ("ShapeFromFile", 'SetFactory("OpenCASCADE");\nv() = ShapeFromFile("part.brep");', r"line 18: 'ShapeFromFile' imports"),
+    ("ShapeFromFile", 'SetFactory("OpenCASCADE");\nv() = ShapeFromFile("part.brep");',
+     r"line 18: 'ShapeFromFile' imports"),
     ("ListFromFile", 'a() = ListFromFile("/etc/hostname");', r"line 17: 'ListFromFile' reads numbers from a file"),
     ("FileExists", 'e = FileExists("/etc/passwd");', r"line 17: 'FileExists' probes the file system"),
     ("GetEnv", 's = GetEnv("HOME");', r"line 17: 'GetEnv' reads the environment"),
@@ -75,7 +77,8 @@ REFUSED = [
     ("Printf list >", 'Printf("%g", 1) > "{m}";', r"line 17: 'Printf\(\.\.\.\) >' writes a file"),
     ("Plugin", "Plugin(NewView).Run;", r"line 17: 'Plugin' runs a post-processing plugin"),
     ("Plugin option", 'Plugin(NewView).FileName = "{m}";', r"line 17: 'Plugin' runs"),
-    ("log file option", 'General.LogFileName = "{m}";', r"line 17: 'General.LogFileName' names a file"),  # gmsh writes it
+    # gmsh writes it:
+    ("log file option", 'General.LogFileName = "{m}";', r"line 17: 'General.LogFileName' names a file"),
     ("options file option", 'General.OptionsFileName = "{m}";', r"'General.OptionsFileName' names a file"),
     ("option spaced", 'General . LogFileName = "{m}";', r"'General.LogFileName' names a file"),
     ("option in a comment-split", 'General/* x */.LogFileName = "{m}";', r"'General.LogFileName' names a file"),
@@ -112,7 +115,8 @@ REFUSED = [
     ("skip: F quote", "For (2:1)\nF'EndFor' System \"touch {m}\"; //'\nEndFor", r"line 18: 'F'E' has a quote or"),
     ("For restart comment", 'For i In {{1:2}} /*\nSystem "touch {m}"; */\nEndFor',
      r"line 17: 'For i In \{1:2\}' has a string or comment running past its line"),
-    ("For restart string", 'For (1:2) s = "\nSystem \\"touch {m}\\"; //";\nEndFor', r"line 17: 'For \(1:2\)' has a string"),
+    ("For restart string", 'For (1:2) s = "\nSystem \\"touch {m}\\"; //";\nEndFor',
+     r"line 17: 'For \(1:2\)' has a string"),
     ("For header line too long", "For (1:2)" + " " * 4000 + "x = 1;\nEndFor", r"line 17: 'For \(1:2\)' has a string"),
 ]
 
@@ -165,8 +169,10 @@ def test_hidden_command_would_run_in_gmsh(tmp_path, capsys, name):
 
 @pytest.mark.parametrize("lines", ENDING)
 def test_ending_the_process_is_refused_even_when_trusted(tmp_path, capsys, lines):
-    message = run_expecting_error(tmp_path, capsys, write_case(tmp_path, geo=PLATES_GEO + lines + "\n"), "--trust-script")
-    assert re.search(r"line 17: '(Exit|Abort|exit|General\.AbortOnError)' (would|can make gmsh) end the program", message)
+    case = write_case(tmp_path, geo=PLATES_GEO + lines + "\n")
+    message = run_expecting_error(tmp_path, capsys, case, "--trust-script")
+    assert re.search(r"line 17: '(Exit|Abort|exit|General\.AbortOnError)' (would|can make gmsh) end the program",
+                     message)
     assert "--trust-script" not in message
 
 
