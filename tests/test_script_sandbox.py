@@ -265,10 +265,10 @@ def test_a_script_that_takes_too_much_memory_is_stopped(tmp_path, capsys):
 
 
 def test_a_crash_of_gmsh_is_one_line(tmp_path, capsys):
-    # why unchecked formats are refused: gmsh hands this one to C's printf, which reads missing arguments
-    case = write_case(tmp_path, geo=PLATES_GEO + 'Printf("%s%s%s%s%s%s%s%s");\n')
+    # why unchecked formats are refused: gmsh formats this number into a 256-character buffer on the stack
+    case = write_case(tmp_path, geo=PLATES_GEO + 'Printf("%0600g", 1);\n')
     message = run_expecting_error(tmp_path, capsys, case, "--trust-script")
-    assert re.search(r"gmsh stopped unexpectedly \(killed by signal 11\) while reading the geometry script", message)
+    assert re.search(r"gmsh stopped unexpectedly \(killed by signal \d+\) while reading the geometry script", message)
 
 
 @pytest.mark.parametrize("value", ["0", "-3", "inf", "nan", "soon"])
@@ -288,3 +288,45 @@ def test_limits_nest_and_are_checked():
     with pytest.raises(ValueError, match="seconds = 0 must be positive"):
         with gmsh_limits(seconds=0):
             pass
+
+
+_GMSH_READS = ("import sys, gmsh\ngmsh.initialize(interruptible=False)\ngmsh.option.setNumber('General.Terminal', 0)\n"
+               "try:\n    gmsh.merge(sys.argv[1])\nexcept Exception:\n    pass\n")
+
+
+@pytest.mark.slow
+def test_the_screen_agrees_with_gmsh_on_generated_layouts(tmp_path):
+    # a differential check: scripts built from the pieces of the hiding cases (block heads, words starting
+    # with E/F/I, openers, a command, block ends); whatever the screen accepts, gmsh must not run the command.
+    # With _skip_hazard and _for_restart_hazard switched off, about 1 % of the accepted ones do run it.
+    import random
+    import subprocess
+    import sys
+
+    pieces = (
+        ["If(0)", "If(1)", "For (2:1)", "For (1:2)", "For i In {1:2}", "If(0)\nIf(0)", "For (2:1)\nIf(0)", ""],
+        ["\n", " ", "", " x = 1;", "\nx = 1;\n"],
+        ["E", "F", "I", "If(1)", "If(a)", "For(1:2)", "For (1:2)", "x", "EndIf", "Else", "EndFor", "", "ExIf(1)", "1E"],
+        ["//", "/*", '"', "'", " //", "// EndIf ", "// EndFor ", '" EndIf ', "' EndFor ", "/* EndIf EndIf ", '" ; '],
+        ["\n", " ", ""],
+        ['System "touch marker";'],
+        ["", " //", " */", ' "', " '", ' //"', " //'", " // */"],
+        ["\nEndIf", "\nEndFor", "\nEndIf\nEndIf", "\nEndFor\nEndIf", "\nEndIf\nEndFor", ""],
+    )
+    rng = random.Random(20261204)
+    accepted = 0
+    for k in range(600):
+        folder = tmp_path / str(k)
+        folder.mkdir()
+        (folder / "s.geo").write_text("".join(rng.choice(choices) for choices in pieces) + "\n")
+        try:
+            screen_script(folder / "s.geo", trusted=False)
+        except GeometryError:
+            continue
+        accepted += 1
+        try:
+            subprocess.run([sys.executable, "-c", _GMSH_READS, "s.geo"], cwd=folder, capture_output=True, timeout=10)
+        except subprocess.TimeoutExpired:
+            pass
+        assert not (folder / "marker").exists(), (folder / "s.geo").read_text()
+    assert accepted > 100  # the check means something only if many layouts pass the screen
