@@ -286,6 +286,7 @@ def _skip_hazard(script: _Script) -> tuple[int, int] | None:
     n = len(text)
     work = [p for p in range(n) if text[p] in "EFI" and not inside[p] and (p == 0 or text[p - 1] not in _ALPHA)]
     seen: set[int] = set()
+    hazards: list[tuple[int, int]] = []
     while work:
         p = work.pop()
         if p in seen or p >= n or inside[p] or text[p] not in "EFI":
@@ -297,11 +298,9 @@ def _skip_hazard(script: _Script) -> tuple[int, int] | None:
             if text.startswith(word, p) and (end >= n or text[end] not in _ALPHA):
                 dropped += range(first_dropped, p + 6)
                 resume += [p + 5, p + 6]
-        hazard = [q for q in dropped if q in openers]
-        if hazard:
-            return p, min(hazard)
+        hazards += [(p, q) for q in dropped if q in openers]
         work += resume
-    return None
+    return min(hazards, key=lambda hazard: hazard[1], default=None)
 
 
 def _for_restart_hazard(script: _Script) -> tuple[int, int] | None:

@@ -117,6 +117,8 @@ REFUSED = [
      r"line 17: 'For i In \{1:2\}' has a string or comment running past its line"),
     ("For restart string", 'For (1:2) s = "\nSystem \\"touch {m}\\"; //";\nEndFor',
      r"line 17: 'For \(1:2\)' has a string"),
+    ("For restart after a CR", 'For i In {{1:2}} // a comment\rSystem "touch {m}";\nEndFor',
+     r"line 17: 'For i In \{1:2\}' has a string"),
     ("For header line too long", "For (1:2)" + " " * 4000 + "x = 1;\nEndFor", r"line 17: 'For \(1:2\)' has a string"),
 ]
 
@@ -124,7 +126,7 @@ ENDING = ["Exit;", "Abort;", "exit;", "General.AbortOnError = 4;", "General.Abor
 
 # the hiding cases: gmsh runs the hidden command (shown here with --trust-script)
 HIDDEN = ["System after a single-quoted //", "System after a backslash", "skip: If(..)//", "skip: E//",
-          "For restart comment"]
+          "For restart comment", "For restart after a CR"]
 
 
 def _geo(lines: str, marker: Path) -> str:
