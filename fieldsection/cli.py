@@ -32,7 +32,11 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--reports", type=Path, default=Path("reports"), help="folder for reports (default: reports)")
     run.add_argument("--no-figures", action="store_true", help="skip the PNG figures (faster on big meshes)")
     run.add_argument("--trust-script", action="store_true",
-                     help="allow gmsh commands that run programs (System, SystemCall, ...) in the geometry script")
+                     help="allow the geometry script to run programs, read or write files and call routines "
+                          "(System, Save, Merge of CAD files, Macro, ...; see the README)")
+    run.add_argument("--time-limit", type=_seconds, default=None, metavar="SECONDS",
+                     help="stop gmsh (reading the geometry script and meshing) after this many seconds "
+                          "(default 3600)")
     run.add_argument("--quiet", action="store_true", help="no progress bar and no summary")
     run.add_argument("--profile", action="store_true", help="print each stage's time and the peak memory after it")
     run.add_argument("--solver", choices=("auto", "direct", "iterative"), default=None,
@@ -44,10 +48,21 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _seconds(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not 0 < value < float("inf"):
+        raise argparse.ArgumentTypeError(f"{text!r} is not a positive number of seconds")
+    return value
+
+
 def _run(args: argparse.Namespace) -> int:
     from tqdm import tqdm
 
     from .case import load_case
+    from .limits import gmsh_limits
     from .pipeline import STAGES, analyse
     from .report import write_report
 
@@ -68,7 +83,8 @@ def _run(args: argparse.Namespace) -> int:
             bar.update(1)
             peaks.append((name, time.perf_counter(), _peak_memory_gib()))
 
-        result = analyse(case, on_stage=step)
+        with gmsh_limits(seconds=args.time_limit):
+            result = analyse(case, on_stage=step)
         computing[0] = False
         bar.total = bar.n + writing if not args.no_figures else bar.n + 2
         folder = write_report(result, args.reports, with_figures=not args.no_figures, on_step=step)

@@ -13,7 +13,9 @@ from __future__ import annotations
 
 import math
 import multiprocessing
+import os
 import sys
+import time
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Iterator, Mapping
@@ -24,12 +26,17 @@ from .case import MAX_REFINEMENTS, BuilderGeometry, MeshSettings, ScriptGeometry
 from .errors import GeometryError, MeshError
 from .geometry import screen_script
 from .mesh_budget import CurveSizing, NodeEstimate, SurfaceSizing, default_node_limit, estimate_nodes, refuse_if_too_big
+from .limits import anonymous_memory, current_gmsh_limits, machine_memory
 from .splitting import Snap, split_into_four, with_mid_edge_nodes
 
-#: seconds one meshing may take before it is stopped (a mistyped size can ask for billions of elements)
+#: seconds gmsh may take to read a script and mesh it before it is stopped (a mistyped size can ask for
+#: billions of elements, a script can loop for ever); ``limits.gmsh_limits`` and ``--time-limit`` override it
 MESHING_TIME_LIMIT = 3600.0
 #: two curves that share no point must stay at least this share of the geometry's extent apart
 NARROWEST_RELATIVE_GAP = 1e-6
+#: share of the machine's memory gmsh may take for itself before it is stopped; ``limits.gmsh_limits`` overrides it
+MESHING_MEMORY_SHARE = 0.75
+_WATCH_SECONDS = 0.2  # how often the parent checks the child's time and memory
 #: smallest mesh size accepted, as a share of the geometry's extent
 SMALLEST_RELATIVE_SIZE = 1e-7
 #: with ``refinements`` left to the tool: a mesh predicted above this many nodes is meshed coarser and split
@@ -145,27 +152,51 @@ def mesh_disc(boundary: np.ndarray, centre: np.ndarray, closed: bool = True) -> 
 
 
 def _isolated(work, *args):
-    """Run ``work(*args)`` in a forked child (see the module docstring); return its value or raise its error."""
-    if sys.platform != "linux":  # no safe fork: run in this process
+    """Run ``work(*args)`` in a forked child (see the module docstring); return its value or raise its error.
+
+    The child is stopped when it runs longer than the time limit or takes more memory than the memory
+    limit (``limits.gmsh_limits``, else ``MESHING_TIME_LIMIT`` and ``MESHING_MEMORY_SHARE``).
+    """
+    if sys.platform != "linux":  # no safe fork: run in this process, unbounded
         return work(*args)
+    limits = current_gmsh_limits()
+    seconds = limits.seconds or MESHING_TIME_LIMIT
+    memory = limits.memory_bytes or int(MESHING_MEMORY_SHARE * machine_memory())
+    share = "" if limits.memory_bytes else f" ({MESHING_MEMORY_SHARE:.0%} of this machine's)"
     context = multiprocessing.get_context("fork")
     receiver, sender = context.Pipe(duplex=False)
     child = context.Process(target=_child, args=(sender, work, args), daemon=True)
+    inherited = anonymous_memory(os.getpid())  # the child's memory at the fork, not its own doing
+    deadline = time.monotonic() + seconds
     child.start()
     sender.close()
     try:
-        if not receiver.poll(MESHING_TIME_LIMIT):
-            child.kill()
-            raise MeshError(f"meshing took longer than {MESHING_TIME_LIMIT:.0f} s and was stopped; coarsen the mesh "
-                            "sizes (case [mesh] or the script's own size settings)")
+        while not receiver.poll(max(0.0, min(_WATCH_SECONDS, deadline - time.monotonic()))):
+            if time.monotonic() >= deadline:
+                raise MeshError(
+                    f"gmsh (reading the geometry script and meshing) ran longer than the time limit of "
+                    f"{seconds:g} s and was stopped; look for an endless loop in the script or coarsen the mesh "
+                    "sizes, or raise the limit with --time-limit SECONDS")
+            used = anonymous_memory(child.pid) - inherited
+            if used > memory:
+                raise MeshError(
+                    f"gmsh (reading the geometry script and meshing) took {used / 2**30:.2f} GiB of memory, over "
+                    f"the limit of {memory / 2**30:.2f} GiB{share}, and was stopped; coarsen the mesh sizes or "
+                    "look for huge lists in the script")
         status, payload = receiver.recv()
     except EOFError:
         child.join()
-        killed = child.exitcode is not None and child.exitcode < 0
+        code = child.exitcode
+        cause = f"killed by signal {-code}" if code is not None and code < 0 else f"exit code {code}"
+        if code == -9:
+            cause += ", probably for lack of memory"
         raise MeshError(
-            f"gmsh stopped unexpectedly (exit code {child.exitcode}{', killed: probably out of memory' if killed else ''})"
-            " while meshing; coarsen the mesh sizes, simplify the geometry, or check the script in gmsh's own window"
-        ) from None
+            f"gmsh stopped unexpectedly ({cause}) while reading the geometry script or meshing; coarsen the mesh "
+            "sizes, simplify the geometry, or check the script in gmsh's own window") from None
+    except BaseException:  # a limit passed, or the user interrupted: stop the child first
+        child.kill()
+        child.join()
+        raise
     finally:
         receiver.close()
     child.join()
@@ -179,6 +210,9 @@ def _child(sender, work, args) -> None:
         sender.send(("ok", work(*args)))
     except (GeometryError, MeshError) as exc:
         sender.send(("error", exc))
+    except MemoryError:
+        sender.send(("error", MeshError("gmsh ran out of memory while reading the geometry script or meshing; "
+                                        "coarsen the mesh sizes or look for huge lists in the script")))
     except BaseException as exc:  # anything else from gmsh or a builder, as a readable error
         sender.send(("error", MeshError(f"meshing failed: {type(exc).__name__}: {exc}")))
     finally:

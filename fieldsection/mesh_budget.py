@@ -13,10 +13,10 @@ smallest size that applies), so each gives a lower bound on the nodes of its sur
 from __future__ import annotations
 
 import math
-import os
 from dataclasses import dataclass
 
 from .errors import MeshError
+from .limits import machine_memory
 
 #: nodes per unit area of an equilateral triangulation with unit edge: 2 / sqrt(3)
 NODES_PER_AREA = 2.0 / math.sqrt(3.0)
@@ -26,7 +26,6 @@ NODES_PER_AREA = 2.0 / math.sqrt(3.0)
 BYTES_PER_NODE_AND_ORDER2 = 2_000
 #: share of the machine's memory that one run may plan to use
 MEMORY_SHARE = 0.6
-_FALLBACK_MEMORY = 8 * 2**30  # where the machine's memory cannot be read
 
 
 @dataclass(frozen=True)
@@ -74,14 +73,6 @@ def estimate_nodes(surfaces: list[SurfaceSizing], curves: list[CurveSizing]) -> 
     culprit = (f"most on curve {worst.name}: {worst.length * 1e3:.3g} mm long at element size "
                f"{worst.largest_size * 1e3:.3g} mm")
     return NodeEstimate(on_curves, culprit)
-
-
-def machine_memory() -> int:
-    """Bytes of physical memory of this machine."""
-    try:
-        return int(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
-    except (ValueError, OSError, AttributeError):
-        return _FALLBACK_MEMORY
 
 
 def default_node_limit(element_order: int) -> int:
