@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import math
 import multiprocessing
+import signal
 import os
 import sys
 import time
@@ -206,6 +207,7 @@ def _isolated(work, *args):
 
 
 def _child(sender, work, args) -> None:
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle: it stops this child
     try:
         sender.send(("ok", work(*args)))
     except (GeometryError, MeshError) as exc:
