@@ -4,30 +4,35 @@ The potential of polarised insulation is the potential of its free and bound cha
 (2D Green's function G = -ln|r - r'| / (2 pi eps0) per unit line charge). This stage rebuilds V at
 probe points inside the insulation from
 
-- the free surface charge sigma_f = D.n on every electrode face (n into the dielectric), the grounded
-  enclosure included (its induced charge);
+- the free charge on every electrode face, the grounded enclosure included (its induced charge): the
+  reaction charges K u at the electrode's DOFs, i.e. sigma_f = D.n (n into the dielectric) weighted by each
+  shape function, placed at the DOFs. They are what the capacitance matrix counts and add up exactly; the
+  pointwise D.n of the element gradients does not conserve charge at a singular edge (about 2 % at a
+  stripline's edges, shrinking like the square root of the edge element's size), which this check would
+  otherwise measure instead of the superposition. The D.n integral is reported beside them;
 - the bound charge of the discrete polarisation, -div P as a distribution: P.n_out on every side of every
   dielectric element (on a material face the two sides add to (P_a - P_b).n; inside a uniform material
   the sides of neighbouring elements nearly cancel, and what is left is part of the discretisation error
   this check measures; in a graded material it is the grading's bound charge) and rho_b = -div P inside
   each element (identically zero for linear elements on straight triangles, where P is constant; not zero
-  for P2 or curved elements, computed from the Hessian of V);
+  for P2 or curved elements: the divergence of the interpolated gradient of V);
 - on insulated boundaries (symmetry lines, insulated walls, uncharged cavities) their equivalent double
   layer of moment eps0 V per unit length (Green's representation formula): for a straight symmetry line it
   is exactly the field of the mirrored copies' charges, and a box of insulated walls needs no endless row
   of images. The same layer on electrode faces adds nothing on a closed rim (V constant) and is kept for
   electrodes that are part of an open boundary loop.
 
-Open space (planar): the medium beyond the circle is uniform and carries no charge, and the FE solution is
+Open space (planar, a full circle): the medium beyond the circle is uniform and carries no charge, and the FE solution is
 bounded at infinity, so the drawn section's charges are all there is; the mapped exterior's elements and
-the circle itself (not a material face) are left out. Axisymmetric models are not checked (the kernel of a
+the circle itself (not a material face) are left out. An open sector (an arc ending on a ground plane or
+symmetry line, which continue beyond it) is not checked. Axisymmetric models are not checked (the kernel of a
 ring of charge is not the 2D logarithm): the result says so.
 
 The additive constant is fixed by least squares over the probes; the number reported is the largest
 difference from the FE potential relative to the span of the FE potential. Sums over sources x probes go
-through a one-level cell grid: direct sums from the probe's own and neighbouring cells, multipole
-expansions (order ``MULTIPOLE_ORDER``) from the rest, in chunks of elements, so the cost stays linear in
-the mesh size.
+through a quadtree (``_TreeSum``): direct sums from the probe's own and neighbouring finest cells, multipole
+expansions (order ``MULTIPOLE_ORDER``) from the rest, sources fed in chunks of elements, so time and memory
+stay linear in the mesh size.
 """
 
 from __future__ import annotations
@@ -56,6 +61,8 @@ LINE_PROBES = 300
 FACE_CLEARANCE = 3.0
 #: elements per chunk of the source loop (bounds the memory of the quadrature arrays)
 CHUNK = 100_000
+#: probe-source pairs summed directly at once (bounds the memory of the near field)
+PAIRS_PER_BATCH = 1_000_000
 
 _GS, _GW = np.polynomial.legendre.leggauss(EDGE_POINTS)
 _GS, _GW = 0.5 * (_GS + 1.0), 0.5 * _GW  # on [0, 1]
@@ -79,7 +86,8 @@ class SuperpositionCheck:
     line_fe: np.ndarray = field(default_factory=lambda: np.zeros(0))
     line_rebuilt: np.ndarray = field(default_factory=lambda: np.zeros(0))
     region_differences: dict = field(default_factory=dict)  # region -> largest relative difference
-    free_charge: dict = field(default_factory=dict)  # conductor -> C/m from the check's own quadrature
+    free_charge: dict = field(default_factory=dict)  # conductor -> C/m of the model: reaction charges (the sources)
+    free_charge_from_flux: dict = field(default_factory=dict)  # conductor -> C/m: integral of D.n (not used)
     sources: int = 0
     seconds: float = 0.0
 
@@ -156,16 +164,22 @@ class _TreeSum:
                 probe = np.flatnonzero(ok)
                 cell = ni[ok] * n + nj[ok]
                 many = counts[cell]
-                if many.sum() == 0:
-                    continue
-                pair_probe = np.repeat(probe, many)
-                source = np.repeat(starts[cell] - (np.cumsum(many) - many), many) + np.arange(many.sum())
-                d = w[source] - self.z[pair_probe]
-                distance = np.abs(d)
-                safe = distance > 0
-                value = np.zeros(d.shape)
-                value[safe] = -q[source][safe] * np.log(distance[safe]) + (m[source][safe] / d[safe]).real
-                self.direct += np.bincount(pair_probe, value, len(self.z))
+                # batches of probes with at most PAIRS_PER_BATCH source pairs each (bounded memory)
+                batch = np.cumsum(many) // PAIRS_PER_BATCH
+                for b in np.unique(batch[many > 0]):
+                    mine = batch == b
+                    self._pairs(probe[mine], starts[cell[mine]], many[mine], w, q, m)
+
+    def _pairs(self, probe, first, many, w, q, m) -> None:
+        """Direct sum over sources first[k] .. first[k] + many[k] - 1 for each probe[k]."""
+        pair_probe = np.repeat(probe, many)
+        source = np.repeat(first - (np.cumsum(many) - many), many) + np.arange(many.sum())
+        d = w[source] - self.z[pair_probe]
+        distance = np.abs(d)
+        safe = distance > 0
+        value = np.zeros(d.shape)
+        value[safe] = -q[source][safe] * np.log(distance[safe]) + (m[source][safe] / d[safe]).real
+        self.direct += np.bincount(pair_probe, value, len(self.z))
 
     def _far(self, level: int, charge: np.ndarray, moments: np.ndarray) -> np.ndarray:
         """The interaction list's contribution at ``level``, per probe."""
@@ -340,7 +354,7 @@ def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sid
         m = np.where(layer, epsilon_0 * V * ds, 0.0) * (n[..., 0] + 1j * n[..., 1])
         keep = ~faces_exterior[edge, elements]
         ws.append(w[keep].ravel())
-        qs.append((bound + free)[keep].ravel())
+        qs.append(bound[keep].ravel())
         ms.append(m[keep].ravel())
     if not _is_linear(problem):  # P constant in a linear element on a straight triangle: div P = 0
         w, q = _interior_quadrature(solution, elements)
@@ -392,29 +406,31 @@ def _probe_elements(problem, tree, size) -> tuple[np.ndarray, list[str]]:
     return np.concatenate(chosen), names
 
 
-def _potential_at(solution: Solution, points: np.ndarray, cells: np.ndarray) -> np.ndarray:
-    """The FE potential at ``points`` (n, 2) inside elements ``cells``."""
+def _potential_at(solution: Solution, ref: np.ndarray, cells: np.ndarray) -> np.ndarray:
+    """The FE potential at reference coordinates ``ref`` (2, n) of elements ``cells``."""
     problem = solution.problem
     mesh = problem.section.mesh
     u = solution.potential
     if _is_linear(problem):
         t = mesh.t[:, cells]
-        p0, p1, p2 = (mesh.p[:, t[k]] for k in range(3))
-        d1, d2, r = p1 - p0, p2 - p0, points.T - p0
-        det = d1[0] * d2[1] - d1[1] * d2[0]
-        l1 = (r[0] * d2[1] - r[1] * d2[0]) / det
-        l2 = (d1[0] * r[1] - d1[1] * r[0]) / det
-        return (1 - l1 - l2) * u[t[0]] + l1 * u[t[1]] + l2 * u[t[2]]
+        return (1 - ref[0] - ref[1]) * u[t[0]] + ref[0] * u[t[1]] + ref[1] * u[t[2]]
     basis = problem.basis
-    ref = basis.mapping.invF(points.T[:, :, None], tind=cells)
-    value = np.zeros(len(cells))
-    for k in range(basis.Nbfun):
-        value += u[basis.element_dofs[k, cells]] * basis.elem.gbasis(basis.mapping, ref, k, tind=cells)[0][:, 0]
-    return value
+    return sum(u[basis.element_dofs[k, cells]] * basis.elem.lbasis(ref, k)[0] for k in range(basis.Nbfun))
 
 
-def _containing_elements(mesh, points: np.ndarray, candidates: int = 12) -> np.ndarray:
-    """The corner triangle holding each point (n, 2), -1 where none of the nearest elements by centroid does."""
+def _affine(mesh) -> np.ndarray:
+    """Elements whose mapping is affine (every mid-edge geometry node at its chord's midpoint)."""
+    if mesh.doflocs.shape[1] == mesh.nvertices:
+        return np.ones(mesh.nelements, dtype=bool)
+    middle = mesh.doflocs[:, mesh.nvertices + mesh.t2f]  # (2, 3, ne)
+    chord = np.stack([0.5 * (mesh.p[:, mesh.t[a]] + mesh.p[:, mesh.t[b]]) for a, b in _EDGES], axis=1)
+    size = np.abs(mesh.p[:, mesh.t[1]] - mesh.p[:, mesh.t[0]]).max(axis=0)
+    return (np.abs(middle - chord).max(axis=(0, 1)) <= 1e-9 * size)
+
+
+def _containing_elements(mesh, points: np.ndarray, candidates: int = 12) -> tuple[np.ndarray, np.ndarray]:
+    """The corner triangle holding each point (n, 2), -1 where none of the nearest elements by centroid does,
+    and the point's reference coordinates in it (2, n)."""
     centroid = mesh.p[:, mesh.t].mean(axis=1).T
     _, near = cKDTree(centroid).query(points, k=min(candidates, mesh.nelements))
     near = near.reshape(len(points), -1)
@@ -426,12 +442,14 @@ def _containing_elements(mesh, points: np.ndarray, candidates: int = 12) -> np.n
     l2 = (d1[0] * r[1] - d1[1] * r[0]) / det
     inside = (l1 >= -1e-12) & (l2 >= -1e-12) & (l1 + l2 <= 1 + 1e-12)
     first = np.argmax(inside, axis=1)
-    return np.where(inside.any(axis=1), near[np.arange(len(points)), first], -1)
+    rows = np.arange(len(points))
+    cells = np.where(inside.any(axis=1), near[rows, first], -1)
+    return cells, np.stack([l1[rows, first], l2[rows, first]])
 
 
-def _line(problem, tree, size) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _line(problem, tree, size) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Points along the horizontal line through the middle of the drawn section that lie in the insulation,
-    clear of the faces: (start and end, points, their elements)."""
+    clear of the faces: (start and end, points, their elements, reference coordinates)."""
     section = problem.section
     mesh = section.mesh
     drawn = problem.dielectric & ~section.exterior
@@ -441,13 +459,13 @@ def _line(problem, tree, size) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     ends = np.array([[low[0], y], [high[0], y]])
     x = np.linspace(low[0], high[0], LINE_PROBES + 2)[1:-1]
     points = np.column_stack([x, np.full_like(x, y)])
-    cells = _containing_elements(mesh, points)
+    cells, ref = _containing_elements(mesh, points)
     ok = cells >= 0
-    ok[ok] &= drawn[cells[ok]]
-    if ok.any():
+    ok[ok] &= drawn[cells[ok]] & _affine(mesh)[cells[ok]]  # (in an affine element the corner triangle's
+    if ok.any():                                             # barycentric coordinates are the reference ones)
         distance, _ = tree.query(points[ok])
         ok[np.flatnonzero(ok)] &= distance >= FACE_CLEARANCE * size[cells[ok]]
-    return ends, points[ok], cells[ok]
+    return ends, points[ok], cells[ok], ref[:, ok]
 
 
 # ---------------------------------------------------------------------------------------- the check
@@ -462,26 +480,39 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
     if problem.axisymmetric:
         return SuperpositionCheck(False, "not checked: an axisymmetric model's charges are rings, whose kernel is "
                                          "not the 2D logarithm this check integrates")
+    circle = section.open_circle
+    if circle is not None and not circle.closed:
+        return SuperpositionCheck(False, "not checked: the open-space sector's straight edges (a ground plane or a "
+                                         "symmetry line) continue beyond the circle, and their charges there are "
+                                         "not in the model")
     mesh = section.mesh
     tree, size = _face_tree(problem)
     probe_cells, probe_names = _probe_elements(problem, tree, size)
+    centre = np.array([[1 / 3], [1 / 3]])
     if _is_linear(problem):
         probe_points = mesh.p[:, mesh.t[:, probe_cells]].mean(axis=1).T
     else:
-        probe_points = problem.basis.mapping.F(np.array([[1 / 3], [1 / 3]]), tind=probe_cells)[:, :, 0].T
-    line, line_points, line_cells = _line(problem, tree, size)
+        probe_points = problem.basis.mapping.F(centre, tind=probe_cells)[:, :, 0].T
+    line, line_points, line_cells, line_ref = _line(problem, tree, size)
     points = np.concatenate([probe_points, line_points])
     cells = np.concatenate([probe_cells, line_cells])
-    fe = _potential_at(solution, points, cells)
+    ref = np.concatenate([np.repeat(centre, probe_cells.size, axis=1), line_ref], axis=1)
+    fe = _potential_at(solution, ref, cells)
 
     sources = np.flatnonzero(problem.dielectric & ~section.exterior)
     drawn = mesh.p[:, np.unique(mesh.t[:, sources])]
     per_element = 3 * EDGE_POINTS + (0 if _is_linear(problem) else 6)
     summation = _TreeSum(points, drawn.min(axis=1), drawn.max(axis=1), per_element * sources.size)
     sides = _sides(problem)
-    free = np.zeros(len(problem.conductors))
+    flux = np.zeros(len(problem.conductors))
     for first in range(0, sources.size, CHUNK):  # chunks of elements, not a loop over them
-        summation.add(*_sources(solution, bound_sign, sources[first:first + CHUNK], sides, free))
+        summation.add(*_sources(solution, bound_sign, sources[first:first + CHUNK], sides, flux))
+    reaction = problem.stiffness @ solution.potential
+    free = np.zeros(len(problem.conductors))
+    for k, conductor in enumerate(problem.conductors):  # the electrodes' free charge at their DOFs
+        where = problem.basis.doflocs[:, conductor.dofs]
+        summation.add(where[0] + 1j * where[1], reaction[conductor.dofs], np.zeros(conductor.dofs.size, dtype=complex))
+        free[k] = reaction[conductor.dofs].sum()
     rebuilt = summation.potential()
 
     difference = rebuilt - fe
@@ -492,12 +523,16 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
     relative = np.abs(rebuilt - fe) / span
     names = np.array(probe_names)
     per_region = {name: float(relative[:n_probe][names == name].max()) for name in dict.fromkeys(probe_names)}
-    note = ("free charge on electrode faces, bound charge -div P of the discrete polarisation (element sides and "
-            "interiors), insulated boundaries as their double layer eps0 V; least-squares constant")
+    note = ("free charge: each electrode's reaction charges (K u at its DOFs, the weak form of D.n on its faces, the "
+            "charge of the capacitance matrix) at the DOFs; bound charge: -div P of the discrete polarisation (P.n on "
+            "every element side, both sides adding on material faces, and -div P inside elements); insulated "
+            "boundaries: their double layer eps0 V; 2D free-space Green's function, Gauss quadrature on the (curved) "
+            "element edges; additive constant by least squares")
     if section.open_circle is not None:
         note += "; open space: the section's own charges (the medium beyond the circle carries none)"
     return SuperpositionCheck(
         True, note, float(relative.max()), span, constant, probe_points, tuple(probe_names), fe[:n_probe],
         rebuilt[:n_probe], line, line_points, fe[n_probe:], rebuilt[n_probe:], per_region,
-        {c.name: float(q) for c, q in zip(problem.conductors, free)}, summation.count,
+        {c.name: float(q) for c, q in zip(problem.conductors, free)},
+        {c.name: float(q) for c, q in zip(problem.conductors, flux)}, summation.count,
         time.perf_counter() - start)

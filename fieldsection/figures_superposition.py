@@ -1,0 +1,78 @@
+"""Figure of the charge-superposition check: the charges along the faces, and V rebuilt from them against
+the FE potential along a line (``superposition.py``). Engineers' units: mm, uC/m^2, V or kV."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+from .charges import ChargeResult
+from .figures import DPI, _save
+from .problem import AssembledProblem
+from .superposition import SuperpositionCheck
+
+_MM = 1e3
+_UC_PER_M2 = 1e6
+#: faces named in the legend at most (the rest are drawn in grey)
+MAX_NAMED_FACES = 10
+
+
+def _angle_deg(points: np.ndarray) -> np.ndarray:
+    """Polar angle of each point (n, 2) about the points' centroid, degrees in (-180, 180]."""
+    centre = points.mean(axis=0)
+    return np.degrees(np.arctan2(points[:, 1] - centre[1], points[:, 0] - centre[0]))
+
+
+def plot_superposition(problem: AssembledProblem, charges: ChargeResult, check: SuperpositionCheck,
+                       path: str | os.PathLike) -> Path:
+    """Left: free (electrode faces) and bound (material faces) surface charge density at each facet's midpoint,
+    against the polar angle about the face's centroid. Right: V rebuilt from the charges and the FE potential
+    along the check's line (and the gap between them)."""
+    mesh = problem.section.mesh
+    fig = Figure(figsize=(11, 4.2))
+    FigureCanvasAgg(fig)
+    left, right = fig.subplots(1, 2)
+
+    faces = [(f"free, {c.name}", c.sides.facets, c.sigma_f, "o") for c in charges.conductors if c.sides.facets.size]
+    faces += [(f"bound, {i.region_a} | {i.region_b}", i.facets, i.sigma_b, ".") for i in charges.interfaces
+              if i.facets.size]
+    faces.sort(key=lambda f: -float(np.abs(f[2]).max()))
+    for k, (label, facets, sigma, marker) in enumerate(faces):
+        middle = mesh.p[:, mesh.facets[:, facets]].mean(axis=1).T
+        named = k < MAX_NAMED_FACES
+        left.plot(_angle_deg(middle), sigma.mean(axis=1) * _UC_PER_M2, marker, markersize=2.5, linestyle="none",
+                  label=label if named else None, color=None if named else "0.6")
+    left.axhline(0.0, color="0.3", linewidth=0.6)
+    left.set_xlabel("angle about the face's centroid (deg)")
+    left.set_ylabel("surface charge density (uC/m²)")
+    left.set_title("Charges along the faces", fontsize=10)
+    if faces:
+        left.legend(fontsize=7, loc="best", markerscale=3)
+
+    unit, scale = ("kV", 1e-3) if check.potential_span >= 1e4 else ("V", 1.0)
+    if check.checked and len(check.line_points):
+        x = check.line_points[:, 0] * _MM
+        right.plot(x, check.line_fe * scale, "-", color="#1d4f91", linewidth=1.6, label="FE potential")
+        right.plot(x, check.line_rebuilt * scale, ".", color="#b5431f", markersize=3,
+                   label="rebuilt from the charges")
+        gap = right.twinx()
+        gap.plot(x, np.abs(check.line_rebuilt - check.line_fe) / check.potential_span, color="0.45", linewidth=0.8)
+        gap.set_ylabel("|rebuilt - FE| / span of V", color="0.35")
+        gap.ticklabel_format(axis="y", style="sci", scilimits=(-2, 2))
+        y_mm = check.line[0, 1] * _MM
+        right.set_xlabel(f"x (mm) along y = {y_mm:.4g} mm (points in the insulation, clear of faces)")
+        right.set_ylabel(f"potential ({unit})")
+        right.legend(fontsize=8, loc="best")
+        title = f"Largest relative difference {check.largest_relative_difference:.2e} (all probes)"
+    else:
+        right.set_axis_off()
+        title = "Superposition check: " + (check.note if not check.checked else "no line point clear of the faces")
+        right.text(0.5, 0.5, title, ha="center", va="center", wrap=True, fontsize=9, transform=right.transAxes)
+    right.set_title(title, fontsize=10)
+    fig.tight_layout()
+    fig.set_dpi(DPI)
+    return _save(fig, path)
