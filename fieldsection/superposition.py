@@ -266,7 +266,7 @@ def _edge_quadrature(solution: Solution, elements: np.ndarray, edge: int):
     ref = start[:, None] + direction[:, None] * _GS[None, :]
     basis = Basis(mesh, problem.basis.elem, quadrature=(ref, _GW), elements=elements)
     grad = gradient_at_points(basis, solution.potential)  # (2, n, q)
-    V = basis.interpolate(solution.potential).value  # (n, q)
+    V = np.asarray(basis.interpolate(solution.potential))  # (n, q)
     x = basis.mapping.F(ref, tind=elements)  # (2, n, q)
     jacobian = basis.mapping.DF(ref, tind=elements)
     tangent = np.einsum("ijnq,j->inq", jacobian, direction)
