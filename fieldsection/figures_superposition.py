@@ -21,10 +21,17 @@ _UC_PER_M2 = 1e6
 MAX_NAMED_FACES = 10
 
 
-def _angle_deg(points: np.ndarray) -> np.ndarray:
-    """Polar angle of each point (n, 2) about the points' centroid, degrees in (-180, 180]."""
+def _position(points: np.ndarray) -> np.ndarray:
+    """Where each point (n, 2) of a face lies along it, 0 to 1: the polar angle about the centroid for a face
+    that wraps around it (a closed curve), else the distance along the face's main direction."""
     centre = points.mean(axis=0)
-    return np.degrees(np.arctan2(points[:, 1] - centre[1], points[:, 0] - centre[0]))
+    angle = np.arctan2(points[:, 1] - centre[1], points[:, 0] - centre[0])
+    gaps = np.diff(np.sort(angle), append=np.sort(angle)[:1] + 2 * np.pi) if len(angle) else np.zeros(0)
+    if len(angle) > 2 and gaps.max() < np.pi / 2:
+        return (angle + np.pi) / (2 * np.pi)
+    _, _, axes = np.linalg.svd(points - centre, full_matrices=False)
+    along = (points - centre) @ axes[0]
+    return (along - along.min()) / (np.ptp(along) or 1.0)
 
 
 def plot_superposition(problem: AssembledProblem, charges: ChargeResult, check: SuperpositionCheck,
@@ -44,10 +51,10 @@ def plot_superposition(problem: AssembledProblem, charges: ChargeResult, check: 
     for k, (label, facets, sigma, marker) in enumerate(faces):
         middle = mesh.p[:, mesh.facets[:, facets]].mean(axis=1).T
         named = k < MAX_NAMED_FACES
-        left.plot(_angle_deg(middle), sigma.mean(axis=1) * _UC_PER_M2, marker, markersize=2.5, linestyle="none",
+        left.plot(_position(middle), sigma.mean(axis=1) * _UC_PER_M2, marker, markersize=2.5, linestyle="none",
                   label=label if named else None, color=None if named else "0.6")
     left.axhline(0.0, color="0.3", linewidth=0.6)
-    left.set_xlabel("angle about the face's centroid (deg)")
+    left.set_xlabel("position along the face, 0 to 1 (closed: angle / 360 deg)")
     left.set_ylabel("surface charge density (uC/m²)")
     left.set_title("Charges along the faces", fontsize=10)
     if faces:
@@ -55,7 +62,8 @@ def plot_superposition(problem: AssembledProblem, charges: ChargeResult, check: 
 
     unit, scale = ("kV", 1e-3) if check.potential_span >= 1e4 else ("V", 1.0)
     if check.checked and len(check.line_points):
-        x = check.line_points[:, 0] * _MM
+        direction = (check.line[1] - check.line[0]) / np.hypot(*(check.line[1] - check.line[0]))
+        x = (check.line_points - check.line[0]) @ direction * _MM
         right.plot(x, check.line_fe * scale, "-", color="#1d4f91", linewidth=1.6, label="FE potential")
         right.plot(x, check.line_rebuilt * scale, ".", color="#b5431f", markersize=3,
                    label="rebuilt from the charges")
@@ -63,8 +71,9 @@ def plot_superposition(problem: AssembledProblem, charges: ChargeResult, check: 
         gap.plot(x, np.abs(check.line_rebuilt - check.line_fe) / check.potential_span, color="0.45", linewidth=0.8)
         gap.set_ylabel("|rebuilt - FE| / span of V", color="0.35")
         gap.ticklabel_format(axis="y", style="sci", scilimits=(-2, 2))
-        y_mm = check.line[0, 1] * _MM
-        right.set_xlabel(f"x (mm) along y = {y_mm:.4g} mm (points in the insulation, clear of faces)")
+        start = ", ".join(f"{v:.4g}" for v in check.line[0] * _MM)
+        end = ", ".join(f"{v:.4g}" for v in check.line[1] * _MM)
+        right.set_xlabel(f"distance along the line ({start}) -> ({end}) mm (mm)")
         right.set_ylabel(f"potential ({unit})")
         right.legend(fontsize=8, loc="best")
         title = f"Largest relative difference {check.largest_relative_difference:.2e} (all probes)"

@@ -447,25 +447,31 @@ def _containing_elements(mesh, points: np.ndarray, candidates: int = 12) -> tupl
     return cells, np.stack([l1[rows, first], l2[rows, first]])
 
 
-def _line(problem, tree, size) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Points along the horizontal line through the middle of the drawn section that lie in the insulation,
-    clear of the faces: (start and end, points, their elements, reference coordinates)."""
+def _line(solution: Solution, tree, size) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Points in the insulation, clear of the faces, along the horizontal or the vertical line through the middle
+    of the drawn section, whichever sees the larger change of the FE potential: (start and end, points, their
+    elements, reference coordinates)."""
+    problem = solution.problem
     section = problem.section
     mesh = section.mesh
     drawn = problem.dielectric & ~section.exterior
     xy = mesh.p[:, np.unique(mesh.t[:, ~section.exterior])]
     low, high = xy.min(axis=1), xy.max(axis=1)
-    y = 0.5 * (low[1] + high[1])
-    ends = np.array([[low[0], y], [high[0], y]])
-    x = np.linspace(low[0], high[0], LINE_PROBES + 2)[1:-1]
-    points = np.column_stack([x, np.full_like(x, y)])
-    cells, ref = _containing_elements(mesh, points)
-    ok = cells >= 0
-    ok[ok] &= drawn[cells[ok]] & _affine(mesh)[cells[ok]]  # (in an affine element the corner triangle's
-    if ok.any():                                             # barycentric coordinates are the reference ones)
-        distance, _ = tree.query(points[ok])
-        ok[np.flatnonzero(ok)] &= distance >= FACE_CLEARANCE * size[cells[ok]]
-    return ends, points[ok], cells[ok], ref[:, ok]
+    middle = 0.5 * (low + high)
+    s = np.linspace(0.0, 1.0, LINE_PROBES + 2)[1:-1]
+    best = None
+    for ends in (np.array([[low[0], middle[1]], [high[0], middle[1]]]), np.array([[middle[0], low[1]], [middle[0], high[1]]])):
+        points = ends[0] + s[:, None] * (ends[1] - ends[0])
+        cells, ref = _containing_elements(mesh, points)
+        ok = cells >= 0
+        ok[ok] &= drawn[cells[ok]] & _affine(mesh)[cells[ok]]  # (in an affine element the corner triangle's
+        if ok.any():                                             # barycentric coordinates are the reference ones)
+            distance, _ = tree.query(points[ok])
+            ok[np.flatnonzero(ok)] &= distance >= FACE_CLEARANCE * size[cells[ok]]
+        change = float(np.ptp(_potential_at(solution, ref[:, ok], cells[ok]))) if ok.sum() > 1 else -1.0
+        if best is None or change > best[0]:
+            best = (change, ends, points[ok], cells[ok], ref[:, ok])
+    return best[1:]
 
 
 # ---------------------------------------------------------------------------------------- the check
@@ -493,7 +499,7 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
         probe_points = mesh.p[:, mesh.t[:, probe_cells]].mean(axis=1).T
     else:
         probe_points = problem.basis.mapping.F(centre, tind=probe_cells)[:, :, 0].T
-    line, line_points, line_cells, line_ref = _line(problem, tree, size)
+    line, line_points, line_cells, line_ref = _line(solution, tree, size)
     points = np.concatenate([probe_points, line_points])
     cells = np.concatenate([probe_cells, line_cells])
     ref = np.concatenate([np.repeat(centre, probe_cells.size, axis=1), line_ref], axis=1)
