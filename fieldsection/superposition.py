@@ -24,8 +24,10 @@ probe points inside the insulation from
 
 Open space (planar, a full circle): the medium beyond the circle is uniform and carries no charge, and the FE solution is
 bounded at infinity, so the drawn section's charges are all there is; the mapped exterior's elements and
-the circle itself (not a material face) are left out. An open sector (an arc ending on a ground plane or
-symmetry line, which continue beyond it) is not checked. Axisymmetric models are not checked (the kernel of a
+the circle itself (not a material face) are left out. An open half-disc (an arc ending on a straight ground
+plane or symmetry line, which continue beyond it) is completed by mirror images: of opposite sign across a
+ground plane (whose own charges and their images then cancel), of the same sign across a symmetry line
+(the symmetry copy's charges). Other open sectors are not checked. Axisymmetric models are not checked (the kernel of a
 ring of charge is not the 2D logarithm): the result says so.
 
 The additive constant is fixed by least squares over the probes; the number reported is the largest
@@ -311,9 +313,10 @@ def _interior_quadrature(solution: Solution, elements: np.ndarray):
     return x[0] + 1j * x[1], (eps - epsilon_0)[:, None] * divergence * basis.dx
 
 
-def _sides(problem):
+def _sides(problem, mirror: "_Mirror | None" = None):
     """Per (local edge, element): conductor index on that side (-1 none), whether it is on the boundary of
-    the drawn dielectric, whether it faces the mapped exterior (the open-space circle)."""
+    the drawn dielectric (and not on the mirror line, which is no boundary of the mirrored whole), whether it
+    faces the mapped exterior (the open-space circle)."""
     section = problem.section
     mesh = section.mesh
     ne = mesh.nelements
@@ -332,7 +335,13 @@ def _sides(problem):
     has_other = other >= 0
     boundary = ~has_other | ~inside[np.maximum(other, 0)]
     faces_exterior = has_other & exterior[np.maximum(other, 0)]
-    return conductor, boundary & ~faces_exterior, faces_exterior
+    boundary = boundary & ~faces_exterior
+    if mirror is not None:
+        ends = mesh.p[:, mesh.facets[:, t2f]]  # (2, 2 ends, 3, ne)
+        on_line = mirror.on_line(ends[0, 0] + 1j * ends[1, 0]) & mirror.on_line(ends[0, 1] + 1j * ends[1, 1])
+        boundary &= ~on_line
+        conductor = np.where(on_line, -1, conductor)  # (its charges cancel against their images, or are images)
+    return conductor, boundary, faces_exterior
 
 
 def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sides, free_totals: np.ndarray):
@@ -362,6 +371,58 @@ def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sid
         qs.append(fields_P_sign * q.ravel())
         ms.append(np.zeros(w.size, dtype=complex))
     return np.concatenate(ws), np.concatenate(qs), np.concatenate(ms)
+
+
+class _NotChecked(Exception):
+    """The check does not apply to this model (the message says why)."""
+
+
+def _as_xy(z: np.ndarray) -> np.ndarray:
+    return np.vstack([z.real, z.imag])
+
+
+@dataclass(frozen=True)
+class _Mirror:
+    """The straight line through an open half-disc's centre that the model is half of: an insulated symmetry
+    line (images of the same sign) or a ground plane (images of opposite sign)."""
+
+    centre: complex
+    direction: complex  # unit
+    sign: float
+    tolerance: float
+
+    def reflect(self, z: np.ndarray) -> np.ndarray:
+        return self.centre + self.direction**2 * np.conj(z - self.centre)
+
+    def images(self, w, q, m):
+        """Line charges q at w and dipoles m: their mirror images (a dipole's moment reflected, and negated with
+        the charges for a ground plane)."""
+        return self.reflect(w), self.sign * q, self.sign * self.direction**2 * np.conj(m)
+
+    def on_line(self, z: np.ndarray) -> np.ndarray:
+        return np.abs((np.conj(self.direction) * (z - self.centre)).imag) <= self.tolerance
+
+
+def _mirror(problem) -> _Mirror | None:
+    """The mirror of an open half-disc model; None for models that need none; _NotChecked where the check does
+    not apply."""
+    section = problem.section
+    if problem.axisymmetric:
+        raise _NotChecked("not checked: an axisymmetric model's charges are rings, whose kernel is not the 2D "
+                          "logarithm this check integrates")
+    circle = section.open_circle
+    if circle is None or circle.closed:
+        return None
+    mesh = section.mesh
+    first, last = (mesh.p[:, v] - circle.centre for v in circle.loop[[0, -1]])
+    opposite = np.dot(first, last) <= -(1 - 1e-6) * np.dot(first, first)
+    conductors = {c.name for c in problem.conductors}
+    kinds = {name in conductors for name in circle.end_curves}
+    if not opposite or len(kinds) != 1:
+        raise _NotChecked("not checked: the open-space sector is not a half-disc cut by one symmetry line or one ground "
+                          "plane, so the charges beyond its straight edges have no simple images")
+    direction = complex(*first) / np.hypot(*first)
+    return _Mirror(complex(*circle.centre), direction, -1.0 if kinds.pop() else 1.0, 1e-9 * circle.radius)
 
 
 # ------------------------------------------------------------------------------------------- probes
@@ -483,14 +544,10 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
     start = time.perf_counter()
     problem = solution.problem
     section = problem.section
-    if problem.axisymmetric:
-        return SuperpositionCheck(False, "not checked: an axisymmetric model's charges are rings, whose kernel is "
-                                         "not the 2D logarithm this check integrates")
-    circle = section.open_circle
-    if circle is not None and not circle.closed:
-        return SuperpositionCheck(False, "not checked: the open-space sector's straight edges (a ground plane or a "
-                                         "symmetry line) continue beyond the circle, and their charges there are "
-                                         "not in the model")
+    try:
+        mirror = _mirror(problem)
+    except _NotChecked as refusal:
+        return SuperpositionCheck(False, str(refusal))
     mesh = section.mesh
     tree, size = _face_tree(problem)
     probe_cells, probe_names = _probe_elements(problem, tree, size)
@@ -507,17 +564,26 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
 
     sources = np.flatnonzero(problem.dielectric & ~section.exterior)
     drawn = mesh.p[:, np.unique(mesh.t[:, sources])]
+    if mirror is not None:  # the images lie in the mirrored half
+        drawn = np.hstack([drawn, _as_xy(mirror.reflect(drawn[0] + 1j * drawn[1]))])
     per_element = 3 * EDGE_POINTS + (0 if _is_linear(problem) else 6)
-    summation = _TreeSum(points, drawn.min(axis=1), drawn.max(axis=1), per_element * sources.size)
-    sides = _sides(problem)
+    summation = _TreeSum(points, drawn.min(axis=1), drawn.max(axis=1),
+                         per_element * sources.size * (1 if mirror is None else 2))
+
+    def add(w, q, m):
+        summation.add(w, q, m)
+        if mirror is not None:
+            summation.add(*mirror.images(w, q, m))
+
+    sides = _sides(problem, mirror)
     flux = np.zeros(len(problem.conductors))
     for first in range(0, sources.size, CHUNK):  # chunks of elements, not a loop over them
-        summation.add(*_sources(solution, bound_sign, sources[first:first + CHUNK], sides, flux))
+        add(*_sources(solution, bound_sign, sources[first:first + CHUNK], sides, flux))
     reaction = problem.stiffness @ solution.potential
     free = np.zeros(len(problem.conductors))
     for k, conductor in enumerate(problem.conductors):  # the electrodes' free charge at their DOFs
         where = problem.basis.doflocs[:, conductor.dofs]
-        summation.add(where[0] + 1j * where[1], reaction[conductor.dofs], np.zeros(conductor.dofs.size, dtype=complex))
+        add(where[0] + 1j * where[1], reaction[conductor.dofs], np.zeros(conductor.dofs.size, dtype=complex))
         free[k] = reaction[conductor.dofs].sum()
     rebuilt = summation.potential()
 
@@ -536,6 +602,9 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
             "element edges; additive constant by least squares")
     if section.open_circle is not None:
         note += "; open space: the section's own charges (the medium beyond the circle carries none)"
+    if mirror is not None:
+        note += ("; with their mirror images across the " + ("ground plane (opposite sign)" if mirror.sign < 0 else
+                                                             "symmetry line (same sign)"))
     return SuperpositionCheck(
         True, note, float(relative.max()), span, constant, probe_points, tuple(probe_names), fe[:n_probe],
         rebuilt[:n_probe], line, line_points, fe[n_probe:], rebuilt[n_probe:], per_region,
