@@ -53,7 +53,7 @@ from .mesh import EXTERIOR, linear_gradients_and_areas
 from .solve import Solution
 
 #: Gauss points per element edge
-EDGE_POINTS = 4
+EDGE_POINTS = 3
 #: terms of the multipole expansion of a far cell (cells at least two cells away: ratio <= 0.47 per term)
 MULTIPOLE_ORDER = 20
 #: probes per dielectric region, and along the line
@@ -63,6 +63,8 @@ LINE_PROBES = 300
 FACE_CLEARANCE = 3.0
 #: elements per chunk of the source loop (bounds the memory of the quadrature arrays)
 CHUNK = 100_000
+#: the finest quadtree level holds about this many sources per cell on average (at most 4^9 cells)
+SOURCES_PER_CELL = 64
 #: probe-source pairs summed directly at once (bounds the memory of the near field)
 PAIRS_PER_BATCH = 1_000_000
 
@@ -109,7 +111,7 @@ class _TreeSum:
         self.z = probes[:, 0] + 1j * probes[:, 1]
         self.extent = float(max(upper - lower)) * (1 + 1e-9) or 1.0
         self.lower = lower
-        self.depth = int(np.clip(round(np.log(max(expected_sources, 1) / 8) / np.log(4)), 2, 9))
+        self.depth = int(np.clip(round(np.log(max(expected_sources, 1) / SOURCES_PER_CELL) / np.log(4)), 2, 9))
         n = 2 ** self.depth
         self.direct = np.zeros(len(probes))
         self.charge = np.zeros(n * n)
@@ -127,9 +129,12 @@ class _TreeSum:
         size = self.extent / 2 ** level
         return (self.lower[0] + (i + 0.5) * size) + 1j * (self.lower[1] + (j + 0.5) * size)
 
-    def add(self, w: np.ndarray, q: np.ndarray, m: np.ndarray) -> None:
+    def add(self, w: np.ndarray, q: np.ndarray | None, m: np.ndarray | None = None) -> None:
+        """Sources at w: line charges q (C/m) and/or double-layer moments m (complex, C), either may be None."""
         if w.size == 0:
             return
+        if q is None:
+            q = np.zeros(w.size)
         self.count += w.size
         level = self.depth
         n = 2 ** level
@@ -137,19 +142,23 @@ class _TreeSum:
         i, j = self._ij(w.real, w.imag, level)
         cells = i * n + j
         order = np.argsort(cells, kind="stable")
-        w, q, m, cells, i, j = w[order], q[order], m[order], cells[order], i[order], j[order]
+        w, q, cells, i, j = w[order], q[order], cells[order], i[order], j[order]
+        m = None if m is None else m[order]
         self.charge += np.bincount(cells, q, n * n)
         zeta = (w - self._centre(i, j, level)) / size
         # terms[k - 1] = q zeta^k / k - (m / size) zeta^(k - 1), summed over each cell's run of sources
         terms = np.empty((MULTIPOLE_ORDER, zeta.size), dtype=complex)
-        shifted = m / size
         power = zeta * q  # q zeta^k, built up term by term in place
-        np.subtract(power, shifted, out=terms[0])
+        terms[0] = power
         for k in range(2, MULTIPOLE_ORDER + 1):
-            shifted *= zeta
             power *= zeta
             np.multiply(power, 1.0 / k, out=terms[k - 1])
-            terms[k - 1] -= shifted
+        if m is not None:
+            shifted = m / size  # (m / size) zeta^(k - 1)
+            terms[0] -= shifted
+            for k in range(2, MULTIPOLE_ORDER + 1):
+                shifted *= zeta
+                terms[k - 1] -= shifted
         first = np.flatnonzero(np.r_[True, cells[1:] != cells[:-1]])
         self.moments[:, cells[first]] += np.add.reduceat(terms, first, axis=1)
         self._add_direct(w, q, m, cells)
@@ -180,7 +189,9 @@ class _TreeSum:
         distance = np.abs(d)
         safe = distance > 0
         value = np.zeros(d.shape)
-        value[safe] = -q[source][safe] * np.log(distance[safe]) + (m[source][safe] / d[safe]).real
+        value[safe] = -q[source][safe] * np.log(distance[safe])
+        if m is not None:
+            value[safe] += (m[source][safe] / d[safe]).real
         self.direct += np.bincount(pair_probe, value, len(self.z))
 
     def _far(self, level: int, charge: np.ndarray, moments: np.ndarray) -> np.ndarray:
@@ -345,32 +356,41 @@ def _sides(problem, mirror: "_Mirror | None" = None):
 
 
 def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sides, free_totals: np.ndarray):
-    """The sources of one chunk of elements: positions w, line charges q (C/m), double-layer moments m."""
+    """The sources of one chunk of elements: (positions, line charges q in C/m) and (positions, double-layer
+    moments m). The two sides of a facet inside the chunk share their Gauss points (every local edge runs from
+    the lower global vertex to the higher, as scikit-fem sorts each element's vertices), so their bound charges
+    are added into one source there."""
     problem = solution.problem
+    mesh = problem.section.mesh
     conductor, boundary, faces_exterior = sides
     eps = epsilon_0 * problem.relative_permittivity[elements]
-    ws, qs, ms = [], [], []
+    facets, ws, qs, layer_w, layer_m = [], [], [], [], []
     for edge in range(3):
         w, ds, E, n, V = _edge_quadrature(solution, elements, edge)
         e_n = np.einsum("nqi,nqi->nq", E, n)
         bound = fields_P_sign * (eps - epsilon_0)[:, None] * e_n * ds  # P . n_out
         c = conductor[edge, elements]
         on_conductor = c >= 0
-        free = np.where(on_conductor[:, None], -eps[:, None] * e_n * ds, 0.0)  # D . n into the dielectric
-        if on_conductor.any():
-            free_totals += np.bincount(c[on_conductor], free[on_conductor].sum(axis=1), len(free_totals))
-        layer = (boundary[edge, elements] | on_conductor)[:, None]
-        m = np.where(layer, epsilon_0 * V * ds, 0.0) * (n[..., 0] + 1j * n[..., 1])
+        if on_conductor.any():  # the integral of D . n into the dielectric, reported beside the reaction charges
+            free = -eps[on_conductor, None] * e_n[on_conductor] * ds[on_conductor]
+            free_totals += np.bincount(c[on_conductor], free.sum(axis=1), len(free_totals))
         keep = ~faces_exterior[edge, elements]
-        ws.append(w[keep].ravel())
-        qs.append(bound[keep].ravel())
-        ms.append(m[keep].ravel())
+        facets.append(mesh.t2f[edge, elements][keep])
+        ws.append(w[keep])
+        qs.append(bound[keep])
+        layer = keep & (boundary[edge, elements] | on_conductor)
+        layer_w.append(w[layer].ravel())
+        layer_m.append((epsilon_0 * V * ds * (n[..., 0] + 1j * n[..., 1]))[layer].ravel())
+    facets = np.concatenate(facets)
+    unique, first, inverse = np.unique(facets, return_index=True, return_inverse=True)
+    q_all = np.concatenate(qs)
+    merged = np.stack([np.bincount(inverse, q_all[:, k], unique.size) for k in range(q_all.shape[1])], axis=1)
+    charge_w, charge_q = [np.concatenate(ws)[first].ravel()], [merged.ravel()]
     if not _is_linear(problem):  # P constant in a linear element on a straight triangle: div P = 0
         w, q = _interior_quadrature(solution, elements)
-        ws.append(w.ravel())
-        qs.append(fields_P_sign * q.ravel())
-        ms.append(np.zeros(w.size, dtype=complex))
-    return np.concatenate(ws), np.concatenate(qs), np.concatenate(ms)
+        charge_w.append(w.ravel())
+        charge_q.append(fields_P_sign * q.ravel())
+    return (np.concatenate(charge_w), np.concatenate(charge_q)), (np.concatenate(layer_w), np.concatenate(layer_m))
 
 
 class _NotChecked(Exception):
@@ -397,7 +417,8 @@ class _Mirror:
     def images(self, w, q, m):
         """Line charges q at w and dipoles m: their mirror images (a dipole's moment reflected, and negated with
         the charges for a ground plane)."""
-        return self.reflect(w), self.sign * q, self.sign * self.direction**2 * np.conj(m)
+        return (self.reflect(w), None if q is None else self.sign * q,
+                None if m is None else self.sign * self.direction**2 * np.conj(m))
 
     def on_line(self, z: np.ndarray) -> np.ndarray:
         return np.abs((np.conj(self.direction) * (z - self.centre)).imag) <= self.tolerance
@@ -447,8 +468,7 @@ def _face_tree(problem) -> tuple[cKDTree, np.ndarray]:
 def _probe_elements(problem, tree, size) -> tuple[np.ndarray, list[str]]:
     section = problem.section
     mesh = section.mesh
-    centroid = mesh.p[:, mesh.t].mean(axis=1).T
-    rng = np.random.default_rng(14)
+    rng = np.random.default_rng(14)  # a fixed seed: the same probes on every run of the same mesh
     chosen, names = [], []
     for index, name in enumerate(section.region_names):
         if name == EXTERIOR or name not in problem.material_of_region:
@@ -456,7 +476,9 @@ def _probe_elements(problem, tree, size) -> tuple[np.ndarray, list[str]]:
         mine = np.flatnonzero(section.region_of_element == index)
         if not problem.dielectric[mine].any():
             continue
-        distance, _ = tree.query(centroid[mine])
+        if mine.size > 50 * PROBES_PER_REGION:  # a random subset is enough to choose from
+            mine = np.sort(rng.choice(mine, size=50 * PROBES_PER_REGION, replace=False))
+        distance, _ = tree.query(mesh.p[:, mesh.t[:, mine]].mean(axis=1).T)
         ratio = distance / size[mine]
         clear = mine[ratio >= FACE_CLEARANCE]
         if clear.size == 0:  # a thin layer: the most central elements
@@ -570,7 +592,7 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
     summation = _TreeSum(points, drawn.min(axis=1), drawn.max(axis=1),
                          per_element * sources.size * (1 if mirror is None else 2))
 
-    def add(w, q, m):
+    def add(w, q, m=None):
         summation.add(w, q, m)
         if mirror is not None:
             summation.add(*mirror.images(w, q, m))
@@ -578,12 +600,14 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
     sides = _sides(problem, mirror)
     flux = np.zeros(len(problem.conductors))
     for first in range(0, sources.size, CHUNK):  # chunks of elements, not a loop over them
-        add(*_sources(solution, bound_sign, sources[first:first + CHUNK], sides, flux))
+        (charge_w, charge_q), (layer_w, layer_m) = _sources(solution, bound_sign, sources[first:first + CHUNK], sides, flux)
+        add(charge_w, charge_q)
+        add(layer_w, None, layer_m)
     reaction = problem.stiffness @ solution.potential
     free = np.zeros(len(problem.conductors))
     for k, conductor in enumerate(problem.conductors):  # the electrodes' free charge at their DOFs
         where = problem.basis.doflocs[:, conductor.dofs]
-        add(where[0] + 1j * where[1], reaction[conductor.dofs], np.zeros(conductor.dofs.size, dtype=complex))
+        add(where[0] + 1j * where[1], reaction[conductor.dofs])
         free[k] = reaction[conductor.dofs].sum()
     rebuilt = summation.potential()
 
