@@ -63,8 +63,6 @@ LINE_PROBES = 300
 FACE_CLEARANCE = 3.0
 #: elements per chunk of the source loop (bounds the memory of the quadrature arrays)
 CHUNK = 100_000
-#: the finest quadtree level holds about this many sources per cell on average (at most 4^9 cells)
-SOURCES_PER_CELL = 64
 #: probe-source pairs summed directly at once (bounds the memory of the near field)
 PAIRS_PER_BATCH = 1_000_000
 
@@ -107,16 +105,37 @@ class _TreeSum:
     ones (the expansion of ln about a new centre). A probe is at least 1.5 cell sizes from a far cell's
     centre and every source within 0.71 of it, so each term shrinks by 0.47 or more."""
 
-    def __init__(self, probes: np.ndarray, lower: np.ndarray, upper: np.ndarray, expected_sources: int):
+    def __init__(self, probes: np.ndarray, lower: np.ndarray, upper: np.ndarray, where: np.ndarray, weight: float):
+        """``where`` (2, n): points standing for the sources to come (element centroids), ``weight`` sources each."""
         self.z = probes[:, 0] + 1j * probes[:, 1]
         self.extent = float(max(upper - lower)) * (1 + 1e-9) or 1.0
         self.lower = lower
-        self.depth = int(np.clip(round(np.log(max(expected_sources, 1) / SOURCES_PER_CELL) / np.log(4)), 2, 9))
+        self.depth = self._cheapest_depth(where, weight)
         n = 2 ** self.depth
         self.direct = np.zeros(len(probes))
         self.charge = np.zeros(n * n)
         self.moments = np.zeros((MULTIPOLE_ORDER, n * n), dtype=complex)
         self.count = 0
+
+    def _cheapest_depth(self, where: np.ndarray, weight: float) -> int:
+        """The finest level (2 .. 9) with the least estimated work: direct pairs of the probes' neighbourhoods
+        (from where the sources will lie) against the expansions' work, ~ 4^level cells x order^2."""
+        best, cost = 2, np.inf
+        for level in range(2, 10):  # eight levels, not a loop over the mesh
+            n = 2 ** level
+            i, j = self._ij(where[0], where[1], level)
+            count = np.bincount(i * n + j, minlength=n * n) * weight
+            pi, pj = self._ij(self.z.real, self.z.imag, level)
+            pairs = 0.0
+            for di in (-1, 0, 1):
+                for dj in (-1, 0, 1):
+                    ni, nj = pi + di, pj + dj
+                    ok = (ni >= 0) & (ni < n) & (nj >= 0) & (nj < n)
+                    pairs += count[ni[ok] * n + nj[ok]].sum()
+            estimate = 10.0 * pairs + where.shape[1] * weight * MULTIPOLE_ORDER + n * n * MULTIPOLE_ORDER**2
+            if estimate < cost:
+                best, cost = level, estimate
+        return best
 
     def _ij(self, x: np.ndarray, y: np.ndarray, level: int) -> tuple[np.ndarray, np.ndarray]:
         n = 2 ** level
@@ -466,8 +485,12 @@ def _face_tree(problem) -> tuple[cKDTree, np.ndarray]:
 
 
 def _probe_elements(problem, tree, size) -> tuple[np.ndarray, list[str]]:
+    """Up to ``PROBES_PER_REGION`` elements of each dielectric region, drawn at random with chances in proportion
+    to their areas (so the probes spread over the region rather than crowd where the mesh is fine), at least
+    ``FACE_CLEARANCE`` element sizes from any face; in a layer too thin for that, its most central elements."""
     section = problem.section
     mesh = section.mesh
+    areas = section.element_areas
     rng = np.random.default_rng(14)  # a fixed seed: the same probes on every run of the same mesh
     chosen, names = [], []
     for index, name in enumerate(section.region_names):
@@ -477,13 +500,14 @@ def _probe_elements(problem, tree, size) -> tuple[np.ndarray, list[str]]:
         if not problem.dielectric[mine].any():
             continue
         if mine.size > 50 * PROBES_PER_REGION:  # a random subset is enough to choose from
-            mine = np.sort(rng.choice(mine, size=50 * PROBES_PER_REGION, replace=False))
+            mine = np.unique(rng.choice(mine, size=50 * PROBES_PER_REGION, p=areas[mine] / areas[mine].sum()))
         distance, _ = tree.query(mesh.p[:, mesh.t[:, mine]].mean(axis=1).T)
         ratio = distance / size[mine]
         clear = mine[ratio >= FACE_CLEARANCE]
         if clear.size == 0:  # a thin layer: the most central elements
             clear = mine[np.argsort(ratio)[-min(20, mine.size):]]
-        pick = rng.choice(clear, size=min(PROBES_PER_REGION, clear.size), replace=False)
+        pick = rng.choice(clear, size=min(PROBES_PER_REGION, clear.size), replace=False,
+                          p=areas[clear] / areas[clear].sum())
         chosen.append(np.sort(pick))
         names += [name] * pick.size
     return np.concatenate(chosen), names
@@ -588,9 +612,11 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
     drawn = mesh.p[:, np.unique(mesh.t[:, sources])]
     if mirror is not None:  # the images lie in the mirrored half
         drawn = np.hstack([drawn, _as_xy(mirror.reflect(drawn[0] + 1j * drawn[1]))])
-    per_element = 3 * EDGE_POINTS + (0 if _is_linear(problem) else 6)
-    summation = _TreeSum(points, drawn.min(axis=1), drawn.max(axis=1),
-                         per_element * sources.size * (1 if mirror is None else 2))
+    per_element = 1.5 * EDGE_POINTS + (0 if _is_linear(problem) else 6)  # sources per element (a facet per side pair)
+    centroids = mesh.p[:, mesh.t[:, sources]].mean(axis=1)
+    if mirror is not None:
+        centroids = np.hstack([centroids, _as_xy(mirror.reflect(centroids[0] + 1j * centroids[1]))])
+    summation = _TreeSum(points, drawn.min(axis=1), drawn.max(axis=1), centroids, per_element)
 
     def add(w, q, m=None):
         summation.add(w, q, m)
