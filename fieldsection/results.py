@@ -91,7 +91,8 @@ def superposition_results(check: SuperpositionCheck) -> dict[str, Any]:
         "probes": int(len(check.probes) + len(check.line_points)),
         "sources": check.sources,
         "largest_relative_difference_per_region": check.region_differences,
-        "free_charge_of_the_model_per_conductor_C_per_m": check.free_charge,  # one symmetry copy
+        "free_charge_of_the_model_per_conductor_C_per_m": check.free_charge,  # one symmetry copy: the sources used
+        "flux_of_D_of_the_model_per_conductor_C_per_m": check.free_charge_from_flux,  # beside them, not used
         "line_mm": [_mm(check.line[0]), _mm(check.line[1])],
         "seconds": check.seconds,
     }

@@ -114,7 +114,7 @@ def test_open_half_models_are_completed_by_mirror_images():
     assert check.largest_relative_difference < 2e-3  # measured 5.8e-4, as the full model's 5.9e-4
 
 
-def test_axisymmetric_model_is_refused_with_a_note():
+def test_axisymmetric_model_is_refused_with_a_note(tmp_path):
     from test_axisymmetric import sphere_case
     from fieldsection import analyse
 
@@ -122,6 +122,12 @@ def test_axisymmetric_model_is_refused_with_a_note():
     check = check_superposition(result.solution)
     assert not check.checked and check.largest_relative_difference is None
     assert "axisymmetric" in check.note
+    from fieldsection.report import write_report
+
+    folder = write_report(result, tmp_path, with_figures=False)
+    data = json.loads((folder / "results.json").read_text())["charge_superposition_check"]
+    assert data["checked"] is False and data["largest_relative_difference"] is None
+    assert "Superposition check not checked: an axisymmetric model" in (folder / "report.html").read_text()
 
 
 def test_report_carries_the_number_and_the_figure(tmp_path):
