@@ -64,11 +64,17 @@ def plot_superposition(problem: AssembledProblem, charges: ChargeResult, check: 
     if check.checked and len(check.line_points):
         direction = (check.line[1] - check.line[0]) / np.hypot(*(check.line[1] - check.line[0]))
         x = (check.line_points - check.line[0]) @ direction * _MM
-        right.plot(x, check.line_fe * scale, "-", color="#1d4f91", linewidth=1.6, label="FE potential")
+        # break the lines where the line leaves the insulation or passes close to a face (no points there)
+        step = np.diff(x)
+        cut = np.flatnonzero(step > 1.5 * np.median(step)) + 1 if step.size else np.zeros(0, dtype=int)
+        xs = np.insert(x, cut, np.nan)
+        right.plot(xs, np.insert(check.line_fe * scale, cut, np.nan), "-", color="#1d4f91", linewidth=1.6,
+                   label="FE potential")
         right.plot(x, check.line_rebuilt * scale, ".", color="#b5431f", markersize=3,
                    label="rebuilt from the charges")
         gap = right.twinx()
-        gap.plot(x, np.abs(check.line_rebuilt - check.line_fe) / check.potential_span, color="0.45", linewidth=0.8)
+        gap.plot(xs, np.insert(np.abs(check.line_rebuilt - check.line_fe) / check.potential_span, cut, np.nan),
+                 color="0.45", linewidth=0.8)
         gap.set_ylabel("|rebuilt - FE| / span of V", color="0.35")
         gap.ticklabel_format(axis="y", style="sci", scilimits=(-2, 2))
         start = ", ".join(f"{v:.4g}" for v in check.line[0] * _MM)
