@@ -321,6 +321,11 @@ def run_suite(full: bool = False, names: list[str] | None = None,
 
 
 # ---------------------------------------------------------------------------------------------- report
+def _cell(text: str) -> str:
+    """Text for a Markdown table cell (a literal | would end the cell)."""
+    return text.replace("|", "\\|")
+
+
 def _markdown(suite: SuiteResult) -> str:
     env = suite.environment
     lines = [
@@ -335,10 +340,10 @@ def _markdown(suite: SuiteResult) -> str:
     for c in suite.checks:
         computed = "–" if c.computed is None else f"{c.computed:.8g} {c.unit}"
         error = "–" if c.error is None else f"{c.error:.2e} ({c.error_kind})"
-        verdict = "pass" if c.passed else "**FAIL**" + (f": {c.note}" if c.note else "")
+        verdict = "pass" if c.passed else "**FAIL**" + (f": {_cell(c.note)}" if c.note else "")
         lines.append(f"| {c.case} | {c.quantity} | {computed} | {c.reference:.8g} {c.unit} | {error} | "
                      f"{c.tolerance:.1e} | {verdict} | {c.dofs if c.dofs is not None else '–'} | {c.seconds:.2f} | "
-                     f"{c.source} |")
+                     f"{_cell(c.source)} |")
     lines += ["", "## Environment", ""]
     lines += [f"- fieldsection {env['fieldsection']}, Python {env['python']}, {env['platform']}, {env['cpus']} CPUs",
               f"- linear solvers used: {', '.join(env['linear_solvers_used']) or 'none'}",

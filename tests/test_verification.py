@@ -56,16 +56,21 @@ def test_a_formula_that_misses_its_worked_value_is_refused(tmp_path):
 
 
 def test_cli_verify_writes_the_report_and_exits_0(tmp_path, capsys):
-    assert main(["verify", "--case", "coax", "--case", "peek", "--reports", str(tmp_path)]) == 0
+    assert main(["verify", "--case", "coax", "--case", "peek", "--case", "square_corner",
+                 "--reports", str(tmp_path)]) == 0
     out = capsys.readouterr().out
-    assert "4 of 4 checks passed" in out
+    assert "5 of 5 checks passed" in out
     data = json.loads((tmp_path / "verification" / "verification.json").read_text())
     assert data["all_passed"] and data["mode"] == "fast"
     assert data["environment"]["packages"]["scikit-fem"] and data["environment"]["linear_solvers_used"]
     row = data["checks"][0]
     assert row["case"] == "coax" and row["degrees_of_freedom"] > 1000 and row["error"] < row["tolerance"]
     assert "Pozar" in row["source"]
-    assert "| coax | capacitance |" in (tmp_path / "verification" / "verification.md").read_text()
+    markdown = (tmp_path / "verification" / "verification.md").read_text()
+    assert "| coax | capacitance |" in markdown
+    # every table row has the ten cells of the header (a | inside a source is escaped)
+    rows = [line for line in markdown.splitlines() if line.startswith("| ")]
+    assert all(len(line.replace("\\|", "").split("|")) == 12 for line in rows)
 
 
 def test_cli_verify_exits_1_when_a_check_fails(tmp_path, monkeypatch, capsys):
