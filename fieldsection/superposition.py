@@ -48,7 +48,7 @@ from scipy.constants import epsilon_0
 from scipy.spatial import cKDTree
 from skfem import Basis
 
-from .fields import _EDGES, _VERTICES, _is_linear, gradient_at_points
+from .fields import _EDGES, _VERTICES, _is_linear, _linear_gradient, gradient_at_points
 from .mesh import EXTERIOR, linear_gradients_and_areas
 from .solve import Solution
 
@@ -271,29 +271,31 @@ class _TreeSum:
 
 
 # ------------------------------------------------------------------------------------------ sources
-def _edge_quadrature(solution: Solution, elements: np.ndarray, edge: int):
+def _edge_quadrature(solution: Solution, elements: np.ndarray, edge: int, linear_E: np.ndarray | None = None):
     """On local edge ``edge`` of ``elements``: Gauss points (n, q) complex, weights ds (n, q), E (n, q, 2),
-    outward unit normal (n, q, 2), V (n, q)."""
+    outward unit normal (n, q, 2), V (n, q). ``linear_E`` (n, 2): the elements' constant E, for linear
+    elements on straight triangles."""
     problem = solution.problem
     mesh = problem.section.mesh
     a, b = _EDGES[edge]
     if _is_linear(problem):
         t = mesh.t[:, elements]
-        pa, pb, pc = mesh.p[:, t[a]], mesh.p[:, t[b]], mesh.p[:, t[3 - a - b]]
-        points = pa.T[:, None, :] + (pb - pa).T[:, None, :] * _GS[None, :, None]
-        tangent = (pb - pa).T
-        length = np.hypot(*tangent.T)
-        normal = np.stack([tangent[:, 1], -tangent[:, 0]], axis=1) / length[:, None]
-        flip = np.einsum("ni,ni->n", normal, 0.5 * (pa + pb).T - pc.T) < 0
-        normal[flip] *= -1
+        x, y = mesh.p[0], mesh.p[1]  # one coordinate row at a time: 2D fancy indexing is several times slower
+        ax, ay, bx, by = x[t[a]], y[t[a]], x[t[b]], y[t[b]]
+        cx, cy = x[t[3 - a - b]], y[t[3 - a - b]]
+        tx, ty = bx - ax, by - ay
+        length = np.hypot(tx, ty)
+        nx, ny = ty / length, -tx / length
+        flip = np.where(nx * (0.5 * (ax + bx) - cx) + ny * (0.5 * (ay + by) - cy) < 0, -1.0, 1.0)
+        nx, ny = nx * flip, ny * flip
+        points = (ax + 1j * ay)[:, None] + (tx + 1j * ty)[:, None] * _GS[None, :]
         u = solution.potential
-        ua, ub, uc = u[t[a]], u[t[b]], u[t[3 - a - b]]
-        grad = _p1_gradient(mesh.p[:, t[0]], mesh.p[:, t[1]], mesh.p[:, t[2]], u[t[0]], u[t[1]], u[t[2]])
-        E = np.broadcast_to(-grad[:, None, :], (len(elements), EDGE_POINTS, 2))
+        ua, ub = u[t[a]], u[t[b]]
+        E = np.broadcast_to(linear_E[:, None, :], (len(elements), EDGE_POINTS, 2))
         V = ua[:, None] + (ub - ua)[:, None] * _GS[None, :]
         ds = length[:, None] * _GW[None, :]
-        n_q = np.broadcast_to(normal[:, None, :], E.shape)
-        return points[..., 0] + 1j * points[..., 1], ds, E, n_q, V
+        n_q = np.broadcast_to(np.stack([nx, ny], axis=1)[:, None, :], E.shape)
+        return points, ds, E, n_q, V
     start, direction = _VERTICES[:, a], _VERTICES[:, b] - _VERTICES[:, a]
     ref = start[:, None] + direction[:, None] * _GS[None, :]
     basis = Basis(mesh, problem.basis.elem, quadrature=(ref, _GW), elements=elements)
@@ -308,13 +310,6 @@ def _edge_quadrature(solution: Solution, elements: np.ndarray, edge: int):
     sign = np.sign(np.einsum("inq,in->nq", normal, x.mean(axis=2) - centroid))[:, :1]
     normal = np.moveaxis(normal * sign[None], 0, -1)
     return x[0] + 1j * x[1], length * _GW[None, :], np.moveaxis(-grad, 0, -1), normal, V
-
-
-def _p1_gradient(p0, p1, p2, u0, u1, u2) -> np.ndarray:
-    d1, d2 = p1 - p0, p2 - p0
-    det = d1[0] * d2[1] - d1[1] * d2[0]
-    g1, g2 = u1 - u0, u2 - u0
-    return np.stack([(g1 * d2[1] - g2 * d1[1]) / det, (g2 * d1[0] - g1 * d2[0]) / det], axis=1)
 
 
 def _interior_quadrature(solution: Solution, elements: np.ndarray):
@@ -355,10 +350,9 @@ def _sides(problem, mirror: "_Mirror | None" = None):
     conductor = np.full((3, ne), -1, dtype=np.int64)
     element_ids = np.arange(ne)
     for index, c in enumerate(problem.conductors):
-        keys = np.asarray(c.facets, dtype=np.int64) * ne + c.facet_dielectric_element
-        for k in range(3):
-            hit = np.isin(t2f[k].astype(np.int64) * ne + element_ids, keys)
-            conductor[k, hit] = index
+        element = np.asarray(c.facet_dielectric_element, dtype=np.int64)
+        local = np.argmax(t2f[:, element] == np.asarray(c.facets)[None, :], axis=0)  # the facet's local edge
+        conductor[local, element] = index
     other = np.where(f2t[0, t2f] == element_ids[None, :], f2t[1, t2f], f2t[0, t2f])  # (3, ne)
     exterior = section.exterior
     inside = problem.dielectric & ~exterior
@@ -384,8 +378,9 @@ def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sid
     conductor, boundary, faces_exterior = sides
     eps = epsilon_0 * problem.relative_permittivity[elements]
     facets, ws, qs, layer_w, layer_m = [], [], [], [], []
+    linear_E = -_linear_gradient(mesh, solution.potential, elements) if _is_linear(problem) else None
     for edge in range(3):
-        w, ds, E, n, V = _edge_quadrature(solution, elements, edge)
+        w, ds, E, n, V = _edge_quadrature(solution, elements, edge, linear_E)
         e_n = np.einsum("nqi,nqi->nq", E, n)
         bound = fields_P_sign * (eps - epsilon_0)[:, None] * e_n * ds  # P . n_out
         c = conductor[edge, elements]
@@ -401,9 +396,14 @@ def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sid
         layer_w.append(w[layer].ravel())
         layer_m.append((epsilon_0 * V * ds * (n[..., 0] + 1j * n[..., 1]))[layer].ravel())
     facets = np.concatenate(facets)
-    unique, first, inverse = np.unique(facets, return_index=True, return_inverse=True)
+    # the first side of each facet in the chunk collects the bound charge of both (a scatter into a per-facet
+    # table: no sort)
+    owner = np.empty(mesh.nfacets, dtype=np.int64)
+    owner[facets[::-1]] = np.arange(facets.size)[::-1]
+    target = owner[facets]
+    first = np.flatnonzero(target == np.arange(facets.size))
     q_all = np.concatenate(qs)
-    merged = np.stack([np.bincount(inverse, q_all[:, k], unique.size) for k in range(q_all.shape[1])], axis=1)
+    merged = np.stack([np.bincount(target, q_all[:, k], facets.size)[first] for k in range(q_all.shape[1])], axis=1)
     charge_w, charge_q = [np.concatenate(ws)[first].ravel()], [merged.ravel()]
     if not _is_linear(problem):  # P constant in a linear element on a straight triangle: div P = 0
         w, q = _interior_quadrature(solution, elements)
@@ -536,11 +536,18 @@ def _affine(mesh) -> np.ndarray:
 
 
 def _containing_elements(mesh, points: np.ndarray, candidates: int = 12) -> tuple[np.ndarray, np.ndarray]:
-    """The corner triangle holding each point (n, 2), -1 where none of the nearest elements by centroid does,
-    and the point's reference coordinates in it (2, n)."""
-    centroid = mesh.p[:, mesh.t].mean(axis=1).T
-    _, near = cKDTree(centroid).query(points, k=min(candidates, mesh.nelements))
-    near = near.reshape(len(points), -1)
+    """The corner triangle holding each point (n, 2) of a straight line, -1 where none of the nearest elements
+    by centroid does, and the point's reference coordinates in it (2, n). Only the elements whose bounding
+    boxes the line's box touches are searched (a thin strip of the mesh, not all of it)."""
+    low, high = points.min(axis=0), points.max(axis=0)
+    x, y = mesh.p[0][mesh.t], mesh.p[1][mesh.t]  # (3, ne)
+    crossing = np.flatnonzero((x.min(axis=0) <= high[0]) & (x.max(axis=0) >= low[0])
+                              & (y.min(axis=0) <= high[1]) & (y.max(axis=0) >= low[1]))
+    if crossing.size == 0:
+        return np.full(len(points), -1), np.zeros((2, len(points)))
+    centroid = np.stack([x[:, crossing].mean(axis=0), y[:, crossing].mean(axis=0)], axis=1)
+    _, near = cKDTree(centroid).query(points, k=min(candidates, crossing.size))
+    near = crossing[near.reshape(len(points), -1)]
     t = mesh.t[:, near]  # (3, n, k)
     p0, p1, p2 = (mesh.p[:, t[k]] for k in range(3))  # (2, n, k)
     d1, d2, r = p1 - p0, p2 - p0, points.T[:, :, None] - p0
@@ -609,7 +616,8 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
     fe = _potential_at(solution, ref, cells)
 
     sources = np.flatnonzero(problem.dielectric & ~section.exterior)
-    drawn = mesh.p[:, np.unique(mesh.t[:, sources])]
+    (x0, x1), (y0, y1) = ((c[mesh.t[:, sources]].min(), c[mesh.t[:, sources]].max()) for c in mesh.p)
+    drawn = np.array([[x0, x0, x1, x1], [y0, y1, y0, y1]])  # the corners of the sources' bounding box
     if mirror is not None:  # the images lie in the mirrored half
         drawn = np.hstack([drawn, _as_xy(mirror.reflect(drawn[0] + 1j * drawn[1]))])
     per_element = 1.5 * EDGE_POINTS + (0 if _is_linear(problem) else 6)  # sources per element (a facet per side pair)
