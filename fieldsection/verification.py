@@ -69,7 +69,11 @@ def reference_value(reference: float | str) -> float:
     """A number, or a formula of the names in ``_NAMESPACE`` (shipped data only: no builtins)."""
     if isinstance(reference, (int, float)):
         return float(reference)
-    return float(eval(reference, {"__builtins__": {}}, dict(_NAMESPACE)))  # noqa: S307 (our own data file)
+    try:
+        return float(eval(reference, {"__builtins__": {}}, dict(_NAMESPACE)))  # noqa: S307 (our own data file)
+    except Exception as exc:
+        raise CaseFileError(f"verification reference {reference!r} cannot be evaluated ({type(exc).__name__}: {exc}); "
+                            f"it may use numbers and {', '.join(_NAMESPACE)}") from None
 
 
 # ------------------------------------------------------------------------------------------- quantities

@@ -94,3 +94,8 @@ def test_cli_verify_bad_option_exits_2(capsys):
         main(["verify", "--fastest"])
     assert exit_info.value.code == 2
     assert "unrecognized arguments: --fastest" in capsys.readouterr().err
+
+
+def test_a_reference_formula_with_an_unknown_name_is_refused():
+    with pytest.raises(CaseFileError, match=r"cannot be evaluated \(NameError"):
+        verification.reference_value("open(0)")
