@@ -138,11 +138,11 @@ def _verify(args: argparse.Namespace) -> int:
     suite = run_suite(full=args.full, names=args.case, on_case=progress)
     folder = write_suite_report(suite, args.reports)
     if not args.quiet:
-        print(f"{'case':18s} {'quantity':28s} {'error':>9s} {'tolerance':>9s}  result")
+        print(f"{'case':24s} {'quantity':28s} {'error':>9s} {'tolerance':>9s}  result")
         for c in suite.checks:
             error = "-" if c.error is None else f"{c.error:.1e}"
             verdict = "pass" if c.passed else "FAIL" + (f" ({c.note})" if c.note else "")
-            print(f"{c.case:18s} {c.quantity:28s} {error:>9s} {c.tolerance:9.1e}  {verdict}")
+            print(f"{c.case:24s} {c.quantity:28s} {error:>9s} {c.tolerance:9.1e}  {verdict}")
         passed = sum(c.passed for c in suite.checks)
         print(f"{passed} of {len(suite.checks)} checks passed in {suite.seconds:.1f} s "
               f"({'full' if args.full else 'fast'} mode); report: {folder}/verification.md")
