@@ -1,4 +1,4 @@
-"""Command line: ``fieldsection run CASE`` and ``fieldsection materials``.
+"""Command line: ``fieldsection run CASE``, ``fieldsection verify`` and ``fieldsection materials``.
 
 Only this module prints and sets exit codes: 0 success, 2 bad input (a one-line message naming
 the culprit and the fix), 1 an unexpected failure, 130 interrupted (Ctrl-C).
@@ -45,6 +45,12 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--max-nodes", type=_positive_whole, default=None, metavar="N",
                      help="largest mesh (nodes) to attempt; default: derived from this machine's memory")
     verbs.add_parser("materials", help="list the shipped materials table")
+    verify = verbs.add_parser("verify", help="run the shipped verification suite (reference cases against published "
+                                             "closed forms) and write reports/verification/")
+    verify.add_argument("--full", action="store_true", help="finer meshes and tight tolerances (minutes, not seconds)")
+    verify.add_argument("--reports", type=Path, default=Path("reports"), help="folder for the report (default: reports)")
+    verify.add_argument("--case", action="append", metavar="NAME", help="run only this reference case (repeatable)")
+    verify.add_argument("--quiet", action="store_true", help="no progress and no table")
     return parser
 
 
@@ -157,6 +163,28 @@ def _summary(result, folder: Path) -> None:
     print("a design aid, not a certification: margins and partial-discharge tests remain the designer's duty")
 
 
+def _verify(args: argparse.Namespace) -> int:
+    """Exit 0 when every check passes, 1 when any fails (a failed verification is not bad input)."""
+    from .verification import run_suite, write_suite_report
+
+    def progress(name: str) -> None:
+        if not args.quiet:
+            print(f"verifying {name} ...", file=sys.stderr, flush=True)
+
+    suite = run_suite(full=args.full, names=args.case, on_case=progress)
+    folder = write_suite_report(suite, args.reports)
+    if not args.quiet:
+        print(f"{'case':24s} {'quantity':28s} {'error':>9s} {'tolerance':>9s}  result")
+        for c in suite.checks:
+            error = "-" if c.error is None else f"{c.error:.1e}"
+            verdict = "pass" if c.passed else "FAIL" + (f" ({c.note})" if c.note else "")
+            print(f"{c.case:24s} {c.quantity:28s} {error:>9s} {c.tolerance:9.1e}  {verdict}")
+        passed = sum(c.passed for c in suite.checks)
+        print(f"{passed} of {len(suite.checks)} checks passed in {suite.seconds:.1f} s "
+              f"({'full' if args.full else 'fast'} mode); report: {folder}/verification.md")
+    return EXIT_OK if suite.passed else EXIT_FAILURE
+
+
 def _materials() -> int:
     from .materials import shipped_materials
 
@@ -174,6 +202,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         if args.verb == "run":
             return _run(args)
+        if args.verb == "verify":
+            return _verify(args)
         return _materials()
     except ReportError as exc:  # not the input's fault: a disk or permission problem
         print(f"fieldsection: error: {exc}", file=sys.stderr)

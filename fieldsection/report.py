@@ -20,6 +20,7 @@ from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescap
 from .errors import ReportError
 from .pipeline import SectionResult
 from .results import build_results
+from .superposition import check_superposition
 
 FIELDS_FILE = "fields.vtk"
 
@@ -82,7 +83,8 @@ def write_report(
     try:
         if on_step:
             on_step("results")
-        results = build_results(result)
+        superposition = check_superposition(result.solution)
+        results = build_results(result, superposition)
         figure_list: list[dict[str, str]] = []
         if with_figures:
             from . import figures as fig  # matplotlib is slow to import: only when drawing
@@ -104,6 +106,12 @@ def write_report(
                 from .analysis_report import analysis_figures
 
                 plots += analysis_figures(result)
+            if superposition.checked:
+                from .figures_superposition import plot_superposition
+
+                plots.append(("superposition.png", "Charge superposition check: free and bound charge along the faces; "
+                              "V rebuilt from them against the FE potential along a line",
+                              lambda p: plot_superposition(result.problem, result.charges, superposition, p)))
             try:
                 for name, caption, draw in plots:
                     if on_step:

@@ -13,6 +13,7 @@ import re
 from .case import MODELS, OUTER_BOUNDARY_KINDS, ScriptGeometry
 from .certificate import SINGULAR
 from .pipeline import SectionResult
+from .superposition import SuperpositionCheck, check_superposition
 
 #: a dielectric body's closed-surface bound charge, relative to its |sigma_b| integral, above which
 #: the Gauss check is reported as failed (common practice, no source: a discretisation-level tolerance)
@@ -96,6 +97,27 @@ def _certified(cert, value: float, strength: float | None) -> dict[str, Any]:
     return out
 
 
+def superposition_results(check: SuperpositionCheck) -> dict[str, Any]:
+    """The charge-superposition check (``superposition.py``) in results.json's units."""
+    return {
+        "checked": check.checked,
+        "largest_relative_difference": check.largest_relative_difference,
+        "meaning": "largest |V rebuilt from the free and bound charges - V of the FE solution| at probe points inside "
+                   "the insulation, relative to the span of the FE potential (additive constant fitted); it falls "
+                   "with the mesh, and a sign error in the charge bookkeeping makes it of order 1",
+        "method": check.note,
+        "potential_span_V": check.potential_span,
+        "additive_constant_V": check.constant,
+        "probes": int(len(check.probes) + len(check.line_points)),
+        "sources": check.sources,
+        "largest_relative_difference_per_region": check.region_differences,
+        "free_charge_of_the_model_per_conductor_C_per_m": check.free_charge,  # one symmetry copy: the sources used
+        "flux_of_D_of_the_model_per_conductor_C_per_m": check.free_charge_from_flux,  # beside them, not used
+        "line_mm": [_mm(check.line[0]), _mm(check.line[1])],
+        "seconds": check.seconds,
+    }
+
+
 def _refinement(result: SectionResult) -> dict[str, Any]:
     settings = result.case.refinement
     rows = []
@@ -127,9 +149,14 @@ def _refinement(result: SectionResult) -> dict[str, Any]:
     }
 
 
-def build_results(result: SectionResult) -> dict[str, Any]:
-    """Every number of a run; for a body of revolution the per-metre keys become whole-body ones."""
+def build_results(result: SectionResult, superposition: SuperpositionCheck | None = None) -> dict[str, Any]:
+    """Every number of a run; for a body of revolution the per-metre keys become whole-body ones.
+
+    ``superposition``: the charge-superposition check of this result, if already computed (else it is)."""
     results = _build(result)
+    if superposition is None:
+        superposition = check_superposition(result.solution)
+    results["charge_superposition_check"] = superposition_results(superposition)
     if result.case.model != "planar":
         results = _whole_body(results)
     if result.conduction is not None:  # a DC or AC analysis ran beside the electrostatic one (names its own keys)

@@ -1,0 +1,195 @@
+"""Fast sums of 2D line charges and dipoles at a few probe points: a quadtree with multipole expansions.
+
+``LogPotentialSum(probes, ...)`` takes sources in chunks (``add``: positions, line charges and/or dipole
+moments) and returns the potential at the probes (``potential``, up to a constant): the 2D free-space
+Green's function -ln|r - r'| / (2 pi eps0) per unit line charge, and its normal derivative for a double
+layer. Direct sums near each probe, expansions of order ``MULTIPOLE_ORDER`` farther away: time and memory
+linear in the number of sources for a fixed set of probes. Used by ``superposition.py``.
+"""
+
+from __future__ import annotations
+
+from math import comb
+
+import numpy as np
+from scipy.constants import epsilon_0
+
+#: terms of the multipole expansion of a far cell (cells at least two cells away: ratio <= 0.47 per term)
+MULTIPOLE_ORDER = 20
+#: probe-source pairs summed directly at once (bounds the memory of the near field)
+PAIRS_PER_BATCH = 1_000_000
+
+
+class LogPotentialSum:
+    """Re F(z) / (2 pi eps0) at the probes, F(z) = sum -q ln(z - w) + m / (w - z), over sources fed in chunks.
+
+    A quadtree of square cells over the section, levels 2 .. ``depth`` (2^level cells a side, stored densely):
+    sources in the probe's own and the eight neighbouring finest cells are summed directly; at every level
+    the cells that are not neighbours of the probe's cell but whose parents neighbour its parent (at most 27)
+    act through their multipole expansions, which are built on the finest level and shifted to the coarser
+    ones (the expansion of ln about a new centre). A probe is at least 1.5 cell sizes from a far cell's
+    centre and every source within 0.71 of it, so each term shrinks by 0.47 or more."""
+
+    def __init__(self, probes: np.ndarray, lower: np.ndarray, upper: np.ndarray, where: np.ndarray, weight: float):
+        """``where`` (2, n): points standing for the sources to come (element centroids), ``weight`` sources each."""
+        self.z = probes[:, 0] + 1j * probes[:, 1]
+        self.extent = float(max(upper - lower)) * (1 + 1e-9) or 1.0
+        self.lower = lower
+        self.depth = self._cheapest_depth(where, weight)
+        n = 2 ** self.depth
+        self.direct = np.zeros(len(probes))
+        self.charge = np.zeros(n * n)
+        self.moments = np.zeros((MULTIPOLE_ORDER, n * n), dtype=complex)
+        self.count = 0
+
+    def _cheapest_depth(self, where: np.ndarray, weight: float) -> int:
+        """The finest level (2 .. 9) with the least estimated work: direct pairs of the probes' neighbourhoods
+        (from where the sources will lie) against the expansions' work, ~ 4^level cells x order^2."""
+        best, cost = 2, np.inf
+        for level in range(2, 10):  # eight levels, not a loop over the mesh
+            n = 2 ** level
+            i, j = self._ij(where[0], where[1], level)
+            count = np.bincount(i * n + j, minlength=n * n) * weight
+            pi, pj = self._ij(self.z.real, self.z.imag, level)
+            pairs = 0.0
+            for di in (-1, 0, 1):
+                for dj in (-1, 0, 1):
+                    ni, nj = pi + di, pj + dj
+                    ok = (ni >= 0) & (ni < n) & (nj >= 0) & (nj < n)
+                    pairs += count[ni[ok] * n + nj[ok]].sum()
+            estimate = 10.0 * pairs + where.shape[1] * weight * MULTIPOLE_ORDER + n * n * MULTIPOLE_ORDER**2
+            if estimate < cost:
+                best, cost = level, estimate
+        return best
+
+    def _ij(self, x: np.ndarray, y: np.ndarray, level: int) -> tuple[np.ndarray, np.ndarray]:
+        n = 2 ** level
+        size = self.extent / n
+        i = np.clip(np.floor((x - self.lower[0]) / size).astype(np.int64), 0, n - 1)
+        j = np.clip(np.floor((y - self.lower[1]) / size).astype(np.int64), 0, n - 1)
+        return i, j
+
+    def _centre(self, i: np.ndarray, j: np.ndarray, level: int) -> np.ndarray:
+        size = self.extent / 2 ** level
+        return (self.lower[0] + (i + 0.5) * size) + 1j * (self.lower[1] + (j + 0.5) * size)
+
+    def add(self, w: np.ndarray, q: np.ndarray | None, m: np.ndarray | None = None) -> None:
+        """Sources at w: line charges q (C/m) and/or double-layer moments m (complex, C), either may be None."""
+        if w.size == 0:
+            return
+        if q is None:
+            q = np.zeros(w.size)
+        self.count += w.size
+        level = self.depth
+        n = 2 ** level
+        size = self.extent / n
+        i, j = self._ij(w.real, w.imag, level)
+        cells = i * n + j
+        order = np.argsort(cells, kind="stable")
+        w, q, cells, i, j = w[order], q[order], cells[order], i[order], j[order]
+        m = None if m is None else m[order]
+        self.charge += np.bincount(cells, q, n * n)
+        zeta = (w - self._centre(i, j, level)) / size
+        # terms[k - 1] = q zeta^k / k - (m / size) zeta^(k - 1), summed over each cell's run of sources
+        terms = np.empty((MULTIPOLE_ORDER, zeta.size), dtype=complex)
+        power = zeta * q  # q zeta^k, built up term by term in place
+        terms[0] = power
+        for k in range(2, MULTIPOLE_ORDER + 1):
+            power *= zeta
+            np.multiply(power, 1.0 / k, out=terms[k - 1])
+        if m is not None:
+            shifted = m / size  # (m / size) zeta^(k - 1)
+            terms[0] -= shifted
+            for k in range(2, MULTIPOLE_ORDER + 1):
+                shifted *= zeta
+                terms[k - 1] -= shifted
+        first = np.flatnonzero(np.r_[True, cells[1:] != cells[:-1]])
+        self.moments[:, cells[first]] += np.add.reduceat(terms, first, axis=1)
+        self._add_direct(w, q, m, cells)
+
+    def _add_direct(self, w, q, m, cells) -> None:
+        n = 2 ** self.depth  # (sources sorted by cell)
+        counts = np.bincount(cells, minlength=n * n)
+        starts = np.cumsum(counts) - counts
+        pi, pj = self._ij(self.z.real, self.z.imag, self.depth)
+        for di in (-1, 0, 1):  # the nine cells around each probe
+            for dj in (-1, 0, 1):
+                ni, nj = pi + di, pj + dj
+                ok = (ni >= 0) & (ni < n) & (nj >= 0) & (nj < n)
+                probe = np.flatnonzero(ok)
+                cell = ni[ok] * n + nj[ok]
+                many = counts[cell]
+                # batches of probes with at most PAIRS_PER_BATCH source pairs each (bounded memory)
+                batch = np.cumsum(many) // PAIRS_PER_BATCH
+                for b in np.unique(batch[many > 0]):
+                    mine = batch == b
+                    self._pairs(probe[mine], starts[cell[mine]], many[mine], w, q, m)
+
+    def _pairs(self, probe, first, many, w, q, m) -> None:
+        """Direct sum over sources first[k] .. first[k] + many[k] - 1 for each probe[k]."""
+        pair_probe = np.repeat(probe, many)
+        source = np.repeat(first - (np.cumsum(many) - many), many) + np.arange(many.sum())
+        d = w[source] - self.z[pair_probe]
+        distance = np.abs(d)
+        safe = distance > 0
+        value = np.zeros(d.shape)
+        value[safe] = -q[source][safe] * np.log(distance[safe])
+        if m is not None:
+            value[safe] += (m[source][safe] / d[safe]).real
+        self.direct += np.bincount(pair_probe, value, len(self.z))
+
+    def _far(self, level: int, charge: np.ndarray, moments: np.ndarray) -> np.ndarray:
+        """The interaction list's contribution at ``level``, per probe."""
+        n = 2 ** level
+        size = self.extent / n
+        pi, pj = self._ij(self.z.real, self.z.imag, level)
+        out = np.zeros(len(self.z))
+        for a in range(-2, 4):  # children of the parent's neighbours: six cells a side
+            for b in range(-2, 4):
+                ci, cj = 2 * (pi // 2) + a, 2 * (pj // 2) + b
+                use = (ci >= 0) & (ci < n) & (cj >= 0) & (cj < n) & ((np.abs(ci - pi) > 1) | (np.abs(cj - pj) > 1))
+                if not use.any():
+                    continue
+                cell = ci[use] * n + cj[use]
+                omega = (self.z[use] - self._centre(ci[use], cj[use], level)) / size
+                inverse = 1.0 / omega
+                series = np.zeros(omega.shape, dtype=complex)
+                for k in range(MULTIPOLE_ORDER, 0, -1):  # Horner in 1/omega
+                    series = (series + moments[k - 1, cell]) * inverse
+                out[use] += -charge[cell] * (np.log(np.abs(omega)) + np.log(size)) + series.real
+        return out
+
+    def _to_parent(self, level: int, charge: np.ndarray, moments: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Shift the expansions of ``level`` to the centres of their parents (one level coarser)."""
+        n = 2 ** level
+        used = np.flatnonzero((charge != 0) | (moments != 0).any(axis=0))
+        i, j = np.divmod(used, n)
+        parent = (i // 2) * (n // 2) + j // 2
+        # child centre - parent centre, in parent cell sizes: (+-1 +- 1j) / 4
+        delta = ((i % 2) - 0.5) / 2 + 1j * ((j % 2) - 0.5) / 2
+        Q, a = charge[used], moments[:, used]
+        new = np.zeros((MULTIPOLE_ORDER, used.size), dtype=complex)
+        powers = [np.ones_like(delta)]
+        for _ in range(MULTIPOLE_ORDER):
+            powers.append(powers[-1] * delta)
+        for l in range(1, MULTIPOLE_ORDER + 1):
+            term = Q * powers[l] / l
+            for k in range(1, l + 1):
+                term = term + a[k - 1] * (0.5 ** k * comb(l - 1, k - 1)) * powers[l - k]
+            new[l - 1] = term
+        count = (n // 2) ** 2
+        parent_charge = np.bincount(parent, Q, count)
+        parent_moments = np.zeros((MULTIPOLE_ORDER, count), dtype=complex)
+        for k in range(MULTIPOLE_ORDER):
+            parent_moments[k] = np.bincount(parent, new[k].real, count) + 1j * np.bincount(parent, new[k].imag, count)
+        return parent_charge, parent_moments
+
+    def potential(self) -> np.ndarray:
+        """V at the probes (up to a constant), volts."""
+        total = self.direct.copy()
+        charge, moments = self.charge, self.moments
+        for level in range(self.depth, 1, -1):
+            total += self._far(level, charge, moments)
+            if level > 2:
+                charge, moments = self._to_parent(level, charge, moments)
+        return total / (2 * np.pi * epsilon_0)
