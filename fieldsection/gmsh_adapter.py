@@ -206,8 +206,19 @@ def _isolated(work, *args):
     return payload
 
 
+def _die_with_parent() -> None:
+    """Ask Linux to kill this child when its parent dies (even by SIGKILL, which leaves the parent no say)."""
+    try:
+        import ctypes
+
+        ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # 1: PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass
+
+
 def _child(sender, work, args) -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle: it stops this child
+    _die_with_parent()
     try:
         sender.send(("ok", work(*args)))
     except (GeometryError, MeshError) as exc:
