@@ -114,7 +114,6 @@ def superposition_results(check: SuperpositionCheck) -> dict[str, Any]:
         "free_charge_of_the_model_per_conductor_C_per_m": check.free_charge,  # one symmetry copy: the sources used
         "flux_of_D_of_the_model_per_conductor_C_per_m": check.free_charge_from_flux,  # beside them, not used
         "line_mm": [_mm(check.line[0]), _mm(check.line[1])],
-        "seconds": check.seconds,
     }
 
 
@@ -157,6 +156,7 @@ def build_results(result: SectionResult, superposition: SuperpositionCheck | Non
     if superposition is None:
         superposition = check_superposition(result.solution)
     results["charge_superposition_check"] = superposition_results(superposition)
+    results["timings"]["superposition_check_seconds"] = superposition.seconds
     if result.case.model != "planar":
         results = _whole_body(results)
     if result.conduction is not None:  # a DC or AC analysis ran beside the electrostatic one (names its own keys)
