@@ -141,6 +141,15 @@ def _children(pid: int) -> list[int]:
         return []
 
 
+def _running(pid: int) -> bool:
+    """The process exists and is not a zombie (a killed child waits for its reaper as a zombie)."""
+    try:
+        state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+    except (OSError, IndexError):
+        return False
+    return state not in ("Z", "X")
+
+
 def _wait_for_child(process: subprocess.Popen, seconds: float = 120) -> list[int]:
     deadline = time.monotonic() + seconds
     while time.monotonic() < deadline and process.poll() is None:
@@ -163,7 +172,7 @@ def test_ctrl_c_prints_one_line_and_exits_130(tmp_path):
     assert lines == ["fieldsection: interrupted; no report was written"]
     assert not reports.exists() or not any(reports.iterdir())
     time.sleep(0.5)
-    assert not any(Path(f"/proc/{c}").exists() for c in children), "the meshing child outlived the run"
+    assert not any(_running(c) for c in children), "the meshing child outlived the run"
 
 
 @pytest.mark.skipif(sys.platform != "linux", reason="meshing runs in a forked child on Linux only")
@@ -174,7 +183,7 @@ def test_kill_9_leaves_nothing_and_stale_folders_are_cleaned(tmp_path):
     process.kill()
     process.communicate(timeout=60)
     time.sleep(0.5)
-    assert not any(Path(f"/proc/{c}").exists() for c in children), "the meshing child outlived the killed run"
+    assert not any(_running(c) for c in children), "the meshing child outlived the killed run"
     assert not reports.exists() or not any(reports.iterdir())
     # a run killed while writing leaves its working folder: the next run into the folder removes it
     reports.mkdir(exist_ok=True)
