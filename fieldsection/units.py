@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import math
 import re
-import warnings
 from functools import lru_cache
 from typing import Any
 
@@ -54,24 +53,26 @@ def to_si(value: Any, kind: str, what: str) -> float:
         return _finite(magnitude, what)
     import pint
 
-    registry = _registry()
-    try:
-        units = registry.parse_units(unit_text)
-    except (pint.errors.PintError, ValueError, TypeError, AttributeError, SyntaxError, KeyError) as exc:
-        raise UnitError(f"{what}: unknown unit {unit_text!r} in {value!r} ({exc}); write e.g. '2 mm', '12 kV'") from None
     target = SI_UNITS[kind]
     try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")  # overflow to inf is caught below
-            quantity = registry.Quantity(magnitude, units)
-            converted = quantity.to(target) if target else quantity.to("dimensionless")
+        scale, offset = _conversion(unit_text, target)
     except pint.errors.DimensionalityError:
         raise UnitError(
             f"{what}: {value!r} is not a {kind}; give it in {target or 'no unit'} or a multiple of it"
         ) from None
-    except (pint.errors.PintError, ArithmeticError, ValueError) as exc:
-        raise UnitError(f"{what}: cannot convert {value!r} to {target or 'a plain number'} ({exc})") from None
-    return _finite(float(converted.magnitude), what)
+    except (pint.errors.PintError, ValueError, TypeError, AttributeError, SyntaxError, KeyError) as exc:
+        raise UnitError(f"{what}: unknown unit {unit_text!r} in {value!r} ({exc}); write e.g. '2 mm', '12 kV'") from None
+    return _finite(magnitude * scale + offset, what)  # an overflow gives inf, refused there
+
+
+@lru_cache(maxsize=256)
+def _conversion(unit_text: str, target: str) -> tuple[float, float]:
+    """(scale, offset) taking a magnitude in ``unit_text`` to ``target``; pint parses each unit once."""
+    registry = _registry()
+    units = registry.parse_units(unit_text)
+    to = target or "dimensionless"
+    zero = float(registry.Quantity(0.0, units).to(to).magnitude)  # non-zero only for offset units (degC)
+    return float(registry.Quantity(1.0, units).to(to).magnitude) - zero, zero
 
 
 #: a value with units is a number, then a unit: a product or quotient of unit names with small integer
