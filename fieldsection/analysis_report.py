@@ -291,7 +291,7 @@ def write_analysis_vtk(result, path: str | os.PathLike) -> Path:
     """
     import meshio
 
-    from .errors import ReportError
+    from .vtk_export import write_legacy_vtk
 
     extra, problem = result.conduction, result.problem
     mesh = problem.section.mesh
@@ -319,10 +319,4 @@ def write_analysis_vtk(result, path: str | os.PathLike) -> Path:
     grid = meshio.Mesh(points, [("triangle", np.ascontiguousarray(mesh.t[:, drawn].T, dtype=np.int64))],
                        point_data={k: np.ascontiguousarray(v, dtype=np.float64) for k, v in point_data.items()},
                        cell_data={k: [np.ascontiguousarray(v[drawn])] for k, v in cells.items()})
-    path = Path(path)
-    try:
-        meshio.vtk.write(path, grid, binary=True, fmt_version="4.2")
-    except OSError as exc:
-        raise ReportError(f"cannot write the VTK file {str(path)!r}: {exc.strerror or exc}; "
-                          "check that its folder exists and is writable") from None
-    return path
+    return write_legacy_vtk(grid, path)

@@ -79,8 +79,12 @@ def section_to_meshio(problem: AssembledProblem, solution: Solution, fields: Ele
 def write_vtk(problem: AssembledProblem, solution: Solution, fields: ElementFields, hotspots: HotspotResult,
               path: str | os.PathLike) -> Path:
     """Write the section and its fields to ``path`` as a binary legacy ``.vtk`` file; return the path."""
+    return write_legacy_vtk(section_to_meshio(problem, solution, fields, hotspots), path)
+
+
+def write_legacy_vtk(grid: meshio.Mesh, path: str | os.PathLike) -> Path:
+    """Write ``grid`` as a binary legacy ``.vtk`` file; return the path."""
     path = Path(path)
-    grid = section_to_meshio(problem, solution, fields, hotspots)
     try:
         # version 4.2 of the legacy format: read by older ParaView and VisIt too (5.1 needs VTK 9)
         meshio.vtk.write(path, grid, binary=True, fmt_version="4.2")
