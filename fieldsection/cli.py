@@ -1,4 +1,4 @@
-"""Command line: ``fieldsection run CASE`` and ``fieldsection materials``.
+"""Command line: ``fieldsection run CASE``, ``fieldsection study STUDY`` and ``fieldsection materials``.
 
 Only this module prints and sets exit codes: 0 success, 2 bad input (a one-line message naming
 the culprit and the fix), 1 an unexpected failure.
@@ -37,6 +37,15 @@ def _parser() -> argparse.ArgumentParser:
                      help="linear solver, overriding the case's [solver] method: direct factorisation (PARDISO if "
                           "installed, else SuperLU), iterative (AMG-preconditioned CG), or auto (by size)")
     verbs.add_parser("materials", help="list the shipped materials table")
+    study = verbs.add_parser("study", help="run a design study (variants of a case, a design search): reports/<study>/")
+    study.add_argument("study", type=Path, help="TOML study file")
+    study.add_argument("--reports", type=Path, default=Path("reports"), help="folder for reports (default: reports)")
+    study.add_argument("--workers", type=int, default=None, help="local worker processes (default: one per core)")
+    study.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                       help="run the variants on a Dask distributed cluster, e.g. tcp://10.0.0.5:8786")
+    study.add_argument("--max-dofs", type=int, default=None, help="DOF budget of each variant (bounds worker memory)")
+    study.add_argument("--figures", action="store_true", help="draw the PNG figures of every variant's report")
+    study.add_argument("--quiet", action="store_true", help="no progress bar and no summary")
     return parser
 
 
@@ -121,6 +130,32 @@ def _summary(result, folder: Path) -> None:
     print("a design aid, not a certification: margins and partial-discharge tests remain the designer's duty")
 
 
+def _study(args: argparse.Namespace) -> int:
+    import logging
+
+    from .study import load_study, run_settings
+    from .study_run import run_study
+
+    study = load_study(args.study)
+    given = study.run
+    settings = run_settings(args.workers if args.workers is not None else given.workers,
+                            args.scheduler or given.scheduler,
+                            args.max_dofs if args.max_dofs is not None else given.max_dofs,
+                            args.figures or given.figures, "--")
+    if not args.quiet:
+        logging.basicConfig(level=logging.INFO, format="%(message)s", stream=sys.stderr)
+    outcome = run_study(study, args.reports, settings=settings, progress=not args.quiet)
+    if not args.quiet:
+        s = outcome.table.summary()
+        print(f"study report: {outcome.folder}/index.html")
+        print(f"{s['variants']} variant(s): {s['succeeded']} succeeded, {s['failed']} failed; "
+              f"{len(outcome.log.ran)} computed, {len(outcome.log.cached)} from the cache")
+        if outcome.search is not None:
+            print(f"search: {outcome.search.message}")
+        print("a design aid, not a certification: margins and partial-discharge tests remain the designer's duty")
+    return EXIT_OK
+
+
 def _materials() -> int:
     from .materials import shipped_materials
 
@@ -137,6 +172,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         if args.verb == "run":
             return _run(args)
+        if args.verb == "study":
+            return _study(args)
         return _materials()
     except ReportError as exc:  # not the input's fault: a disk or permission problem
         print(f"fieldsection: error: {exc}", file=sys.stderr)
