@@ -147,6 +147,12 @@ def compute_variant(task: VariantTask) -> tuple[dict[str, Any], dict[str, bytes]
     start = time.perf_counter()
     record: dict[str, Any] = {"key": task.key, "name": task.name, "version": __version__}
     files: dict[str, bytes] = {}
+    # Dask's worker processes are daemonic, and a daemonic process may not start children; the meshing
+    # stage forks one (gmsh_adapter). The flag only guards against orphans: the meshing child is itself
+    # daemonic and joined before the stage returns, so it is lifted for the variant's run.
+    process = multiprocessing.current_process()
+    daemonic = process._config.get("daemon", False)
+    process._config["daemon"] = False
     try:
         case = case_from_mapping(task.mapping, name=task.name, base_dir=task.base_dir)
         result = analyse(case)
@@ -168,6 +174,8 @@ def compute_variant(task: VariantTask) -> tuple[dict[str, Any], dict[str, bytes]
         where = f" at {Path(last[0].filename).name}:{last[0].lineno}" if last else ""
         record.update(status="failed", error=f"{type(exc).__name__}: {exc}{where}", error_type=type(exc).__name__,
                       cache=False, outputs={"seconds": time.perf_counter() - start})
+    finally:
+        process._config["daemon"] = daemonic
     return record, files
 
 
