@@ -47,6 +47,9 @@ class VariantTask:
     mapping: Mapping[str, Any]
     base_dir: str
     figures: bool
+    #: the geometry script and the files it includes, as (path relative to the script's folder, text):
+    #: a worker on another machine, without the study's folder, computes from these
+    scripts: tuple[tuple[str, str], ...] = ()
 
 
 @dataclass
@@ -73,18 +76,36 @@ def script_texts(script: Path, seen: set[Path] | None = None) -> list[tuple[str,
     return out
 
 
-def input_key(mapping: Mapping[str, Any], base_dir: Path, figures: bool) -> str:
-    """A hash of the full resolved input: the case mapping, the script and its included files, the version."""
+def variant_scripts(mapping: Mapping[str, Any], base_dir: Path) -> tuple[tuple[str, str], ...]:
+    """The variant's geometry script and every file it includes, relative to the script's folder."""
     from .case import case_from_mapping
 
-    case = case_from_mapping(mapping, name="variant", base_dir=base_dir)
+    script = case_from_mapping(mapping, name="variant", base_dir=base_dir).geometry.path
+    out = []
+    for path, text in script_texts(script):
+        out.append((os.path.relpath(path, script.parent), text))
+    return tuple(out)
+
+
+def input_key(mapping: Mapping[str, Any], scripts: Sequence[tuple[str, str]], figures: bool) -> str:
+    """A hash of the full resolved input: the case mapping, the script and its included files, the version."""
     digest = hashlib.sha256()
-    digest.update(json.dumps({"case": mapping, "version": __version__, "figures": figures},
+    digest.update(json.dumps({"case": mapping, "version": __version__, "figures": figures, "scripts": scripts},
                              sort_keys=True, default=str).encode())
-    for path, text in script_texts(case.geometry.path):
-        digest.update(Path(path).name.encode())
-        digest.update(text.encode())
     return digest.hexdigest()[:32]
+
+
+def _materialised(task: VariantTask, folder: Path) -> tuple[Mapping[str, Any], str]:
+    """The task's mapping and base folder, with the scripts written into ``folder`` when the study's folder is absent."""
+    if Path(task.base_dir).is_dir() or not task.scripts:
+        return task.mapping, task.base_dir
+    for relative, text in task.scripts:
+        path = (folder / "geometry" / relative).resolve()
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(text, encoding="utf-8")
+    mapping = json.loads(json.dumps(task.mapping))
+    mapping["geometry"]["script"] = task.scripts[0][0]
+    return mapping, str(folder / "geometry")
 
 
 def headline(results: Mapping[str, Any]) -> tuple[dict[str, Any], dict[str, Any]]:
@@ -153,18 +174,16 @@ def compute_variant(task: VariantTask) -> tuple[dict[str, Any], dict[str, bytes]
     process = multiprocessing.current_process()
     daemonic = process._config.get("daemon", False)
     process._config["daemon"] = False
+    scratch = Path(tempfile.mkdtemp(prefix="fieldsection-variant-"))
     try:
-        case = case_from_mapping(task.mapping, name=task.name, base_dir=task.base_dir)
+        mapping, base_dir = _materialised(task, scratch)
+        case = case_from_mapping(mapping, name=task.name, base_dir=base_dir)
         result = analyse(case)
         seconds = time.perf_counter() - start
         outputs, facts = headline(build_results(result))
-        scratch = Path(tempfile.mkdtemp(prefix="fieldsection-variant-"))
-        try:
-            folder = write_report(result, scratch, with_figures=task.figures)
-            for path in folder.iterdir():
-                files[path.name] = path.read_bytes()
-        finally:
-            shutil.rmtree(scratch, ignore_errors=True)
+        folder = write_report(result, scratch / "report", with_figures=task.figures)
+        for path in folder.iterdir():
+            files[path.name] = path.read_bytes()
         record.update(status="ok", outputs={**outputs, "seconds": seconds}, **facts)
     except FieldSectionError as exc:
         record.update(status="failed", error=str(exc), error_type=type(exc).__name__, cache=True,
@@ -176,6 +195,7 @@ def compute_variant(task: VariantTask) -> tuple[dict[str, Any], dict[str, bytes]
                       cache=False, outputs={"seconds": time.perf_counter() - start})
     finally:
         process._config["daemon"] = daemonic
+        shutil.rmtree(scratch, ignore_errors=True)
     return record, files
 
 
@@ -272,9 +292,10 @@ class Runner:
         return self.settings.workers or default_workers()
 
     def task(self, variant: Variant) -> VariantTask:
-        key = input_key(variant.mapping, self.study.base_dir, self.settings.figures)
+        scripts = variant_scripts(variant.mapping, self.study.base_dir)
+        key = input_key(variant.mapping, scripts, self.settings.figures)
         return VariantTask(key, f"{self.study.name}-{key[:10]}", variant.mapping, str(self.study.base_dir),
-                           self.settings.figures)
+                           self.settings.figures, scripts)
 
     def evaluate(self, variants: Sequence[Variant], what: str = "variants") -> list[dict[str, Any]]:
         """The record of each variant, in order: from the cache, or computed and stored."""

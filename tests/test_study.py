@@ -331,3 +331,23 @@ def test_study_dof_budget_reaches_every_variant(tmp_path):
     for variant in load_study(path).variants():
         assert variant.mapping["refinement"]["max_dofs"] == 5000
     assert cache_folder(load_study(path), tmp_path).name == ".coax_study.cache"
+
+
+def test_cache_key_follows_the_script_text_and_a_worker_without_the_folder_computes(tmp_path):
+    from fieldsection.study_run import Runner, compute_variant
+
+    path = _folder(tmp_path, SWEEP)
+    study = load_study(path)
+    variant = study.variants()[0]
+    with Runner(study, tmp_path / "cache", run_settings(workers=1)) as runner:
+        before = runner.task(variant)
+        script = path.parent / "coaxial.geo"
+        script.write_text(script.read_text() + "\n// an edit that changes nothing but the text\n")
+        after = runner.task(variant)
+    assert before.key != after.key  # the input key hashes the script's text
+    # a worker on another machine has no study folder: it computes from the shipped script text
+    from dataclasses import replace
+
+    record, files = compute_variant(replace(after, base_dir=str(tmp_path / "not here")))
+    assert record["status"] == "ok", record.get("error")
+    assert "results.json" in files
