@@ -272,6 +272,9 @@ def run_search(search: Search, runner: Any) -> SearchResult:
     else:
         result = _extremum(search, scanned, evaluate)
     result.steps = sorted(steps, key=lambda s: s.name)
+    if any("judged on the last mesh" in s.note for s in steps):
+        result.message += ("; judged by a singular peak's value on the last mesh (a sharp edge): mesh-dependent, "
+                           "not a peak field; round the edge in the geometry for a design value")
     if result.value is not None:
         at = seen.get(result.value)
         if at is None:
