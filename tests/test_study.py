@@ -351,3 +351,74 @@ def test_cache_key_follows_the_script_text_and_a_worker_without_the_folder_compu
     record, files = compute_variant(replace(after, base_dir=str(tmp_path / "not here")))
     assert record["status"] == "ok", record.get("error")
     assert "results.json" in files
+
+
+class _FormulaRunner:
+    """Stands in for the study runner: each value's record comes from a formula (tests the search logic alone)."""
+
+    def __init__(self, study, formula, workers=2):
+        self.study, self.formula, self.workers, self.records = study, formula, workers, {}
+        self.cache = self
+
+    def evaluate(self, variants, what=""):
+        out = []
+        for v in variants:
+            (value,) = v.settings.values()
+            x = float(str(value).split()[0])
+            record = {"key": f"k{x!r}", "status": "ok", "kinds": {"film": "solid", "slab": "solid", "gap": "gas"},
+                      "outputs": self.formula(x)}
+            self.records[record["key"]] = record
+            out.append(record)
+        return out
+
+    def get(self, key):
+        return self.records.get(key)
+
+
+def _search(tmp_path, table):
+    from fieldsection.study_search import search_from_mapping
+
+    study = load_study(_folder(tmp_path, 'case = "coax.toml"\n'))
+    return study, search_from_mapping(table, study)
+
+
+def test_search_largest_value_meeting_at_least_on_the_worst_gas_region(tmp_path):
+    from fieldsection.study_search import run_search
+
+    # margin falls linearly with x in one gas region and stays high in the other: the largest x with
+    # the worst margin >= 1.2 is where 3 - x = 1.2, x = 1.8
+    study, search = _search(tmp_path, {"set": "geometry.parameters.r_outer", "from": 0.0, "to": 3.0,
+                                       "tolerance": 1e-3, "output": "paschen_margin[every gas]", "at_least": 1.2,
+                                       "find": "largest"})
+    runner = _FormulaRunner(study, lambda x: {"paschen_margin[gap]": 3.0 - x, "paschen_margin[film]": 9.0})
+    found = run_search(search, runner)
+    assert found.met and found.value == pytest.approx(1.8, abs=1e-3)
+    assert found.value <= 1.8 + 1e-12  # the answer is the bracket's meeting end
+
+
+def test_search_refuses_a_singular_peak_unless_told_to_judge_it_on_the_mesh(tmp_path):
+    from fieldsection.study_search import run_search
+
+    def singular(x):
+        return {"share_of_strength[film]": None, "peak_status[film]": "singular", "share_on_this_mesh[film]": 1.0 / x,
+                "share_of_strength[slab]": 0.1, "peak_status[slab]": "converged"}
+
+    table = {"set": "geometry.parameters.r_outer", "from": 1.0, "to": 4.0, "tolerance": 1e-3,
+             "output": "share_of_strength[every solid]", "at_most": 0.5}
+    study, search = _search(tmp_path, table)
+    refused = run_search(search, _FormulaRunner(study, singular))
+    assert not refused.met and "singular peak (sharp edge), cannot be judged" in refused.message
+    study, search = _search(tmp_path, {**table, "singular": "this mesh"})
+    judged = run_search(search, _FormulaRunner(study, singular))
+    assert judged.value == pytest.approx(2.0, abs=1e-3)  # 1/x <= 0.5 from x = 2
+    assert "mesh-dependent, not a peak field" in judged.message
+
+
+def test_search_equal_by_brent(tmp_path):
+    from fieldsection.study_search import run_search
+
+    study, search = _search(tmp_path, {"set": "geometry.parameters.r_outer", "from": 1.5, "to": 10.0,
+                                       "tolerance": 1e-6, "output": "peak_E[insulation]_kV_per_mm", "equal": 0.7})
+    # the coaxial inner-surface field itself, V / (a ln(b/a)) with V = 1 kV, a = 1 mm (closed form, as above)
+    found = run_search(search, _FormulaRunner(study, lambda b: {"peak_E[insulation]_kV_per_mm": 1 / math.log(b)}))
+    assert found.value == pytest.approx(math.exp(1 / 0.7), abs=1e-5)
