@@ -7,6 +7,7 @@ the culprit and the fix), 1 an unexpected failure.
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 import time
 from dataclasses import replace
@@ -130,8 +131,16 @@ def _summary(result, folder: Path) -> None:
     print("a design aid, not a certification: margins and partial-discharge tests remain the designer's duty")
 
 
+class _AboveTheBar(logging.Handler):
+    """Log lines written above a tqdm progress bar."""
+
+    def emit(self, record: logging.LogRecord) -> None:
+        from tqdm import tqdm
+
+        tqdm.write(self.format(record), file=sys.stderr)
+
+
 def _study(args: argparse.Namespace) -> int:
-    import logging
 
     from .study import load_study, run_settings
     from .study_run import run_study
@@ -142,9 +151,15 @@ def _study(args: argparse.Namespace) -> int:
                             args.scheduler or given.scheduler,
                             args.max_dofs if args.max_dofs is not None else given.max_dofs,
                             args.figures or given.figures, "--")
-    if not args.quiet:
-        logging.basicConfig(level=logging.INFO, format="%(message)s", stream=sys.stderr)
-    outcome = run_study(study, args.reports, settings=settings, progress=not args.quiet)
+    logger = logging.getLogger("fieldsection.study")
+    handler = _AboveTheBar()
+    if not args.quiet:  # which variants run and which come from the cache, above the progress bar
+        logger.addHandler(handler)
+        logger.setLevel(logging.INFO)
+    try:
+        outcome = run_study(study, args.reports, settings=settings, progress=not args.quiet)
+    finally:
+        logger.removeHandler(handler)
     if not args.quiet:
         s = outcome.table.summary()
         print(f"study report: {outcome.folder}/index.html")

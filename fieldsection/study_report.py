@@ -169,12 +169,18 @@ def draw_plots(table: StudyTable, outputs: Sequence[str], folder: Path, search: 
                 points.sort()
                 name = None if group_column is None else f"{group_column} = {value}"
                 ax.plot([p[0] for p in points], [p[1] for p in points], "o-", label=name)
-            for y, what in _limit(output, table, search):
-                ax.axhline(y, color="tab:red", linestyle="--", linewidth=1.2, label=f"{what}: {y:.4g}")
+            styles = [("darkred", "-"), ("tab:orange", "--"), ("tab:purple", ":")]
+            for (y, what), (colour, line) in zip(_limit(output, table, search), styles):
+                ax.axhline(y, color=colour, linestyle=line, linewidth=1.3, label=f"{what}: {y:.4g}")
             ax.set_xlabel(x_column)
             ax.set_ylabel(output)
+            title = []
+            if "_on_this_mesh[" in output:
+                title.append("a singular peak's value on the last mesh: mesh-dependent, not a peak field")
             if fixed:
-                ax.set_title("at " + ", ".join(f"{c} = {v}" for c, v in fixed.items()), fontsize=9)
+                title.append("at " + ", ".join(f"{c} = {v}" for c, v in fixed.items()))
+            if title:
+                ax.set_title("\n".join(title), fontsize=9)
             ax.grid(True, alpha=0.3)
             if ax.get_legend_handles_labels()[1]:
                 ax.legend(fontsize=8)
