@@ -169,8 +169,8 @@ def test_search_smallest_outer_radius_for_a_field_limit(tmp_path):
 case = "coax.toml"
 [search]
 set = "geometry.parameters.r_outer"
-from = 4.0
-to = 4.4
+from = 4.05
+to = 4.35
 tolerance = 0.005
 output = "peak_E[insulation]_kV_per_mm"
 at_most = 0.7
@@ -184,7 +184,7 @@ scan = 3
     # the tolerance 0.005 mm plus the peak field's discretisation error (about +8e-4 relative at lc = 0.15 mm,
     # measured; i.e. ln(b/a) * 8e-4 * b = 0.005 mm in b)
     assert found.value == pytest.approx(exact, abs=0.012)
-    assert found.iterations >= 3  # narrowed by k-section, not read off the scan
+    assert found.iterations >= 2  # narrowed by k-section, not read off the scan
     assert found.certificates == {"insulation": "single mesh"}
     assert json.loads((outcome.folder / "search.json").read_text())["met"] is True
 
