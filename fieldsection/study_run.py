@@ -312,6 +312,8 @@ class Runner:
         if firsts:
             self.cache.note(f"{self.study.name}: {len(firsts)} of {len(tasks)} {what} to compute on {self.where}, "
                             f"{len(tasks) - sum(len(ks) for ks in missing.values())} from the cache")
+        elif tasks:
+            self.cache.note(f"{self.study.name}: all {len(tasks)} {what} from the cache")
         for record, files in self._compute(firsts):
             if record.get("cache", True):
                 self.cache.put(record, files)
