@@ -30,7 +30,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .study import Study, StudyError, set_key, split_quantity, unit_suffix
+from .study import Study, StudyError, set_key, unit_suffix
 
 _KEYS = {"set", "from", "to", "unit", "spacing", "tolerance", "output", "at_most", "at_least", "equal", "goal",
          "find", "scan", "singular"}
