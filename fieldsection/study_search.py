@@ -177,8 +177,6 @@ def search_from_mapping(table: Mapping[str, Any], study: Study) -> Search:
     spacing = table.get("spacing", "linear")
     if spacing not in ("linear", "log") or (spacing == "log" and start <= 0):
         raise StudyError(f"search.spacing = {spacing!r}: 'linear', or 'log' with a positive range")
-    if any(key in axis.keys for axis in study.axes):
-        pass  # the search varies its key on the base case; the axes' values of it are not used
     return Search(key, start, stop, unit, tolerance, output, kind, threshold, find, scan, singular, spacing)
 
 
