@@ -11,6 +11,7 @@ the missing ones when run again.
 from __future__ import annotations
 
 import concurrent.futures as cf
+from contextlib import contextmanager
 import hashlib
 import json
 import logging
@@ -351,7 +352,8 @@ class Runner:
             # spawned, not forked: the parent may hold threads (progress bar, Dask) and gmsh state
             self._pool = cf.ProcessPoolExecutor(max_workers=self.workers,
                                                 mp_context=multiprocessing.get_context("spawn"))
-        futures = {self._pool.submit(compute_variant, t): t for t in tasks}
+        with _one_thread_each():  # the workers are spawned at the first submission and take this environment
+            futures = {self._pool.submit(compute_variant, t): t for t in tasks}
         for future in cf.as_completed(futures):
             try:
                 yield future.result()
@@ -377,6 +379,25 @@ class Runner:
                 yield future.result()
             except Exception as exc:  # noqa: BLE001 - a worker died or the task was lost
                 yield _lost(by_key[future.key], exc), {}
+
+
+#: thread counts of the numerical libraries in each local worker: the workers share the cores, as the
+#: processes of a Dask nanny do (which sets the same variables); several threads per worker would contend
+THREAD_VARIABLES = ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS")
+
+
+@contextmanager
+def _one_thread_each():
+    saved = {name: os.environ.get(name) for name in THREAD_VARIABLES}
+    os.environ.update({name: "1" for name in THREAD_VARIABLES})
+    try:
+        yield
+    finally:
+        for name, value in saved.items():
+            if value is None:
+                os.environ.pop(name, None)
+            else:
+                os.environ[name] = value
 
 
 def _lost(task: VariantTask, exc: BaseException) -> dict[str, Any]:
