@@ -192,7 +192,9 @@ scan = 3
 @pytest.mark.slow  # Brent's method is sequential: about 15 variants one after the other
 def test_search_optimum_inner_radius_gives_b_over_a_equal_e(tmp_path):
     # for fixed b = 3 mm the inner-surface field is smallest at a = b / e (classic result, from memory);
-    # the minimum is flat (E rises as x^2 / 2 for a relative offset x), so 1 % in a is a 5e-5 change in E
+    # the minimum is flat (E rises as x^2 / 2 for a relative offset x): a field error varying by d between
+    # neighbouring meshes can move it by sqrt(2 d); at lc = 0.1 mm the peak's error is about 2e-4 (measured),
+    # varying by well under that, so 2 % in a (2e-4 in E); b/a = 2 or 3 would be 26 % or 10 % off
     path = _folder(tmp_path, """
 case = "coax.toml"
 [search]
@@ -202,11 +204,11 @@ to = 1.5
 tolerance = 0.003
 output = "peak_E[insulation]_kV_per_mm"
 goal = "minimum"
-""", lc=0.15)
+""", lc=0.1)
     outcome = run_study(load_study(path), tmp_path / "reports", settings=run_settings(workers=2))
     found = outcome.search
     assert found.met
-    assert 3.0 / found.value == pytest.approx(math.e, rel=1e-2)
+    assert 3.0 / found.value == pytest.approx(math.e, rel=2e-2)
 
 
 def test_search_that_cannot_be_met_says_so(tmp_path):
