@@ -1,4 +1,5 @@
-"""Command line: ``fieldsection run CASE``, ``fieldsection verify`` and ``fieldsection materials``.
+"""Command line: ``fieldsection run CASE``, ``fieldsection study STUDY``, ``fieldsection verify`` and
+``fieldsection materials``.
 
 Only this module prints and sets exit codes: 0 success, 2 bad input (a one-line message naming
 the culprit and the fix), 1 an unexpected failure, 130 interrupted (Ctrl-C).
@@ -8,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import logging
 import sys
 import time
 from dataclasses import replace
@@ -51,6 +53,15 @@ def _parser() -> argparse.ArgumentParser:
     verify.add_argument("--reports", type=Path, default=Path("reports"), help="folder for the report (default: reports)")
     verify.add_argument("--case", action="append", metavar="NAME", help="run only this reference case (repeatable)")
     verify.add_argument("--quiet", action="store_true", help="no progress and no table")
+    study = verbs.add_parser("study", help="run a design study (variants of a case, a design search): reports/<study>/")
+    study.add_argument("study", type=Path, help="TOML study file")
+    study.add_argument("--reports", type=Path, default=Path("reports"), help="folder for reports (default: reports)")
+    study.add_argument("--workers", type=int, default=None, help="local worker processes (default: one per core)")
+    study.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                       help="run the variants on a Dask distributed cluster, e.g. tcp://10.0.0.5:8786")
+    study.add_argument("--max-dofs", type=int, default=None, help="DOF budget of each variant (bounds worker memory)")
+    study.add_argument("--figures", action="store_true", help="draw the PNG figures of every variant's report")
+    study.add_argument("--quiet", action="store_true", help="no progress bar and no summary")
     return parser
 
 
@@ -183,6 +194,44 @@ def _verify(args: argparse.Namespace) -> int:
         print(f"{passed} of {len(suite.checks)} checks passed in {suite.seconds:.1f} s "
               f"({'full' if args.full else 'fast'} mode); report: {folder}/verification.md")
     return EXIT_OK if suite.passed else EXIT_FAILURE
+class _AboveTheBar(logging.Handler):
+    """Log lines written above a tqdm progress bar."""
+
+    def emit(self, record: logging.LogRecord) -> None:
+        from tqdm import tqdm
+
+        tqdm.write(self.format(record), file=sys.stderr)
+
+
+def _study(args: argparse.Namespace) -> int:
+
+    from .study import load_study, run_settings
+    from .study_run import run_study
+
+    study = load_study(args.study)
+    given = study.run
+    settings = run_settings(args.workers if args.workers is not None else given.workers,
+                            args.scheduler or given.scheduler,
+                            args.max_dofs if args.max_dofs is not None else given.max_dofs,
+                            args.figures or given.figures, "--")
+    logger = logging.getLogger("fieldsection.study")
+    handler = _AboveTheBar()
+    if not args.quiet:  # which variants run and which come from the cache, above the progress bar
+        logger.addHandler(handler)
+        logger.setLevel(logging.INFO)
+    try:
+        outcome = run_study(study, args.reports, settings=settings, progress=not args.quiet)
+    finally:
+        logger.removeHandler(handler)
+    if not args.quiet:
+        s = outcome.table.summary()
+        print(f"study report: {outcome.folder}/index.html")
+        print(f"{s['variants']} variant(s): {s['succeeded']} succeeded, {s['failed']} failed; "
+              f"{len(outcome.log.ran)} computed, {len(outcome.log.cached)} from the cache")
+        if outcome.search is not None:
+            print(f"search: {outcome.search.message}")
+        print("a design aid, not a certification: margins and partial-discharge tests remain the designer's duty")
+    return EXIT_OK
 
 
 def _materials() -> int:
@@ -204,6 +253,8 @@ def main(argv: list[str] | None = None) -> int:
             return _run(args)
         if args.verb == "verify":
             return _verify(args)
+        if args.verb == "study":
+            return _study(args)
         return _materials()
     except ReportError as exc:  # not the input's fault: a disk or permission problem
         print(f"fieldsection: error: {exc}", file=sys.stderr)

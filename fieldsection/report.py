@@ -75,11 +75,7 @@ def write_report(
     except OSError as exc:
         raise ReportError(f"cannot create the reports folder {str(reports_dir)!r}: {exc.strerror}") from None
     target = reports_dir / result.case.name
-    remove_stale_folders(reports_dir)
-    staging = Path(tempfile.mkdtemp(prefix=f".{result.case.name}{_PARTIAL}{os.getpid()}-", dir=reports_dir))
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(staging, 0o777 & ~umask)  # mkdtemp makes it private; a report folder is an ordinary one
+    staging = new_staging_folder(reports_dir, result.case.name)
     try:
         if on_step:
             on_step("results")
@@ -130,8 +126,7 @@ def write_report(
         (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default, allow_nan=False),
                                              encoding="utf-8")
         (staging / "report.html").write_text(_render_html(results, figure_list), encoding="utf-8")
-        with _locked(reports_dir):  # two runs of one case: each swap whole, the later one wins
-            _replace_folder(staging, target)
+        publish_folder(staging, target)
     except OSError as exc:
         shutil.rmtree(staging, ignore_errors=True)
         raise ReportError(f"cannot write the report into {str(target)!r}: {exc}; no report was written") from exc
@@ -142,6 +137,24 @@ def write_report(
 
 
 _PARTIAL, _OLD = ".partial-", ".old-"  # hidden working folders: .<case>.partial-<pid>-<random>
+
+
+def new_staging_folder(parent: Path, name: str) -> Path:
+    """A hidden working folder ``parent/.<name>.partial-<pid>-*`` for a folder built whole before it is
+    published; the stale ones of killed runs are removed first."""
+    remove_stale_folders(parent)
+    staging = Path(tempfile.mkdtemp(prefix=f".{name}{_PARTIAL}{os.getpid()}-", dir=parent))
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(staging, 0o777 & ~umask)  # mkdtemp makes it private; a report folder is an ordinary one
+    return staging
+
+
+def publish_folder(staging: Path, target: Path) -> None:
+    """Rename the finished ``staging`` folder to ``target``, replacing an older one whole. Two runs
+    publishing the same target take turns (a lock on the parent folder): the later one wins."""
+    with _locked(target.parent):
+        _replace_folder(staging, target)
 
 
 def remove_stale_folders(reports_dir: Path) -> list[Path]:
