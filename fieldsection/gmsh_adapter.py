@@ -511,7 +511,8 @@ def _refuse_near_misses(gmsh, samples: dict[int, np.ndarray], curves: dict, scal
     other = owner[near] != owner[:, None]
     shared = np.array([[bool(ends[int(i)] & ends[int(j)]) for j in row] for i, row in zip(owner, owner[near])]) \
         if other.any() else np.zeros_like(other)
-    gaps = np.where(other & ~shared, gaps, np.inf)
+    # curves that touch or overlap without a shared point are the mesh check's to name (unfragmented surfaces)
+    gaps = np.where(other & ~shared & (gaps > 1e-9 * extent), gaps, np.inf)
     worst = np.unravel_index(np.argmin(gaps), gaps.shape)
     gap = float(gaps[worst])
     if gap >= NARROWEST_RELATIVE_GAP * extent:
