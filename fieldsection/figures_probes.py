@@ -24,7 +24,15 @@ def _region_spans(samples: ProbeSamples) -> list[tuple[str, float, float]]:
     starts = np.concatenate([[0], change])
     ends = np.concatenate([change, [len(region)]]) - 1
     d = samples.distance * _MM
-    return [(str(region[a]), float(d[a]), float(d[b])) for a, b in zip(starts, ends)]
+    # a run's edges halfway between its first (last) sample and the previous (next) run's
+    left = np.where(starts > 0, 0.5 * (d[starts] + d[np.maximum(starts - 1, 0)]), d[starts])
+    right = np.where(ends < len(d) - 1, 0.5 * (d[ends] + d[np.minimum(ends + 1, len(d) - 1)]), d[ends])
+    return [(str(region[a]), float(l), float(r)) for a, l, r in zip(starts, left, right)]
+
+
+def _top(values: np.ndarray) -> float:
+    finite = values[np.isfinite(values)]
+    return float(finite.max()) if finite.size and finite.max() > 0 else 1.0
 
 
 def plot_probe(samples: ProbeSamples, path: str | os.PathLike, hotspot_fraction: float | None = None) -> Path:
@@ -40,14 +48,15 @@ def plot_probe(samples: ProbeSamples, path: str | os.PathLike, hotspot_fraction:
     top.set_ylabel(f"V ({unit})")
     middle.plot(d, samples.field * _KV_PER_MM, color="#b5431f", linewidth=1.4)
     middle.set_ylabel("|E| (kV/mm)")
-    middle.set_ylim(bottom=0.0)
+    middle.set_ylim(0.0, 1.1 * _top(samples.field * _KV_PER_MM))
     bottom.plot(d, samples.share * 100.0, color="#2f7d32", linewidth=1.4)
     if hotspot_fraction is not None:
         bottom.axhline(100.0 * hotspot_fraction, color="#a00", linestyle="--", linewidth=0.9,
                        label=f"hotspot threshold {100 * hotspot_fraction:.0f} %")
         bottom.legend(fontsize=8, loc="best")
     bottom.set_ylabel("share of strength (%)")
-    bottom.set_ylim(bottom=0.0)
+    bottom.set_ylim(0.0, 1.1 * max(_top(samples.share * 100.0), 100.0 * (hotspot_fraction or 0.0)))
+    bottom.set_xlim(0.0, line.length * _MM)
     start = ", ".join(f"{v:.4g}" for v in np.asarray(line.start) * _MM)
     end = ", ".join(f"{v:.4g}" for v in np.asarray(line.end) * _MM)
     bottom.set_xlabel(f"distance from ({start}) mm towards ({end}) mm (mm)")
