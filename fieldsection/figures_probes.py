@@ -43,6 +43,7 @@ def plot_probe(samples: ProbeSamples, path: str | os.PathLike, hotspot_fraction:
     unit, scale = ("kV", 1e-3) if span >= 1e4 else ("V", 1.0)
     fig = Figure(figsize=(8.0, 6.4))
     FigureCanvasAgg(fig)
+    fig.subplots_adjust(left=0.1, right=0.97, bottom=0.08, top=0.92, hspace=0.12)  # fixed: no layout pass
     top, middle, bottom = fig.subplots(3, 1, sharex=True)
     top.plot(d, samples.potential * scale, color="#1d4f91", linewidth=1.4)
     top.set_ylabel(f"V ({unit})")
@@ -71,5 +72,4 @@ def plot_probe(samples: ProbeSamples, path: str | os.PathLike, hotspot_fraction:
     for ax in (top, middle, bottom):
         ax.grid(True, linewidth=0.4, color="0.85")
     fig.suptitle(f"Probe line {line.name}", fontsize=10)
-    fig.tight_layout()
     return _save(fig, path)
