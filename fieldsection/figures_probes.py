@@ -57,10 +57,13 @@ def plot_probe(samples: ProbeSamples, path: str | os.PathLike, hotspot_fraction:
         bottom.legend(fontsize=8, loc="best")
     bottom.set_ylabel("share of strength (%)")
     bottom.set_ylim(0.0, 1.1 * max(_top(samples.share * 100.0), 100.0 * (hotspot_fraction or 0.0)))
-    bottom.set_xlim(0.0, line.length * _MM)
-    start = ", ".join(f"{v:.4g}" for v in np.asarray(line.start) * _MM)
-    end = ", ".join(f"{v:.4g}" for v in np.asarray(line.end) * _MM)
-    bottom.set_xlabel(f"distance from ({start}) mm towards ({end}) mm (mm)")
+    bottom.set_xlim(0.0, float(d[-1]))
+    start = ", ".join(f"{v:.4g}" for v in samples.xy[0] * _MM)
+    end = ", ".join(f"{v:.4g}" for v in samples.xy[-1] * _MM)
+    if line.curve is None:
+        bottom.set_xlabel(f"distance from ({start}) mm towards ({end}) mm (mm)")
+    else:
+        bottom.set_xlabel(f"distance along the curve {line.curve} from ({start}) mm (mm)")
     spans = _region_spans(samples)
     for k, (name, a, b) in enumerate(spans):
         for ax in (top, middle, bottom):

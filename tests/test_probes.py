@@ -30,6 +30,14 @@ points = 81
 [probes.along_gap]
 from = ["0.5 mm", "0.25 mm"]
 to = ["9.5 mm", "0.25 mm"]
+
+[probes.side_wall]
+curve = "right"
+side = "gap"
+points = 11
+
+[probes.top_plate]
+curve = "top"
 """
 
 
@@ -73,7 +81,7 @@ def test_probe_lines_in_results_and_report(plates_report):
 
     results = json.loads((plates_report / "results.json").read_text())
     lines = {p["name"]: p for p in results["probe_lines"]}
-    assert list(lines) == ["across_gap", "along_gap"]
+    assert list(lines) == ["across_gap", "along_gap", "side_wall", "top_plate"]
     along = lines["along_gap"]
     assert along["length_mm"] == pytest.approx(9.0) and along["points"] == 201
     assert along["points_inside_section"] == 201 and along["regions_crossed"] == ["gap"]
@@ -83,6 +91,21 @@ def test_probe_lines_in_results_and_report(plates_report):
     assert np.allclose([float(r["potential_V"]) for r in rows], 250.0, atol=1e-6)
     html = (plates_report / "report.html").read_text()
     assert 'href="probe_across_gap.csv"' in html and "Probe lines" in html
+
+
+def test_probes_along_named_curves(plates_report):
+    # the insulated side wall x = 10 mm runs from the bottom plate (0 V) to the top one: V rises linearly along it
+    rows = _rows(plates_report / "probe_side_wall.csv")
+    assert [r["region"] for r in rows] == ["gap"] * 11
+    distance = np.array([float(r["distance_mm"]) for r in rows])
+    assert distance[-1] == pytest.approx(1.0) and np.allclose([float(r["x_mm"]) for r in rows], 10.0)
+    assert np.allclose([float(r["potential_V"]) for r in rows], 1000.0 * distance, atol=1e-6)
+    assert np.allclose([float(r["E_kV_per_mm"]) for r in rows], 1.0, rtol=1e-6)
+    # the top plate itself: at its potential, the field of the gap beside it
+    rows = _rows(plates_report / "probe_top_plate.csv")
+    assert float(rows[-1]["distance_mm"]) == pytest.approx(10.0)
+    assert np.allclose([float(r["potential_V"]) for r in rows], 1000.0, atol=1e-6)
+    assert np.allclose([float(r["E_kV_per_mm"]) for r in rows], 1.0, rtol=1e-6)
 
 
 @pytest.mark.parametrize("table, expected", [
@@ -95,6 +118,12 @@ def test_probe_lines_in_results_and_report(plates_report):
     ('[probes.a]\nfrom = ["0 mm", "0 mm"]\nto = ["1 mm", "1 mm"]\npoints = 2.5', r"probes\.a\.points"),
     ('[probes.a]\nfrom = ["0 mm", "0 mm"]\nto = ["1 mm", "1 mm"]\nstep = 2', r"probes\.a: unknown key 'step'"),
     ('probes = "across"', r"\[probes\] must be a table"),
+    ('[probes.a]\ncurve = "top"\nfrom = ["0 mm", "0 mm"]', r"probes\.a: give either 'curve' or 'from' and 'to'"),
+    ('[probes.a]\ncurve = 3', r"probes\.a\.curve: expected the name of a physical curve"),
+    ('[probes.a]\ncurve = "middle"\n[refinement]\nadaptive = false',
+     r"probes\.a\.curve: no physical curve 'middle' in the script; curves: bottom, right, top"),
+    ('[probes.a]\ncurve = "top"\nside = "air"\n[refinement]\nadaptive = false',
+     r"probes\.a\.side: no region 'air'; regions: gap"),
 ])
 def test_bad_probe_input(tmp_path, capsys, table, expected):
     head, tail = (table, "") if table.startswith("probes =") else ("", table)
