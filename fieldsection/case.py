@@ -31,6 +31,7 @@ from types import MappingProxyType
 from typing import Any, Callable, Mapping
 
 from .analysis import AnalysisSettings, parse_analysis
+from .probes import ProbeLine, parse_probes
 from .errors import CaseFileError, FieldSectionError
 from .materials import Material, lookup_material, material_from_mapping
 from .units import to_si
@@ -168,6 +169,7 @@ class Case:
     refinement: Refinement = field(default_factory=Refinement)
     solver: str = "auto"  # linear solver: a key of SOLVER_METHODS
     analysis: AnalysisSettings = field(default_factory=AnalysisSettings)  # [analysis]: electrostatic, dc or ac
+    probes: tuple[ProbeLine, ...] = ()  # [probes]: lines along which the report samples V, |E| and the share
 
     def __post_init__(self) -> None:
         if not self.regions:
@@ -238,7 +240,7 @@ class Case:
 
 
 _TOP_KEYS = {"title", "geometry", "regions", "materials", "electrodes", "boundary", "hotspots", "mesh", "symmetry",
-             "refinement", "solver", "analysis"}
+             "refinement", "solver", "analysis", "probes"}
 
 
 def _table(data: Mapping[str, Any], key: str, where: str) -> Mapping[str, Any]:
@@ -487,6 +489,7 @@ def case_from_mapping(
         refinement=refinement,
         solver=_text(solver_table.get("method", "auto"), "solver.method", SOLVER_METHODS),
         analysis=parse_analysis(data.get("analysis"), where),
+        probes=parse_probes(data.get("probes"), where),
     )
 
 

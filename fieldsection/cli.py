@@ -88,7 +88,7 @@ def _run(args: argparse.Namespace) -> int:
         case = replace(case, solver=args.solver)
     if args.max_nodes is not None:
         case = replace(case, mesh=replace(case.mesh, max_nodes=args.max_nodes))
-    writing = 7  # results, five figures, the VTK file
+    writing = 8 + len(case.probes)  # results, six figures, one per probe line, the VTK file
     with tqdm(total=len(STAGES) + writing, disable=args.quiet, unit="stage", desc=case.name, file=sys.stderr) as bar:
         peaks: list[tuple[str, float, float]] = []  # (stage, start time, peak memory so far)
         computing = [True]

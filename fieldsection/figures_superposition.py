@@ -42,6 +42,8 @@ def plot_superposition(problem: AssembledProblem, charges: ChargeResult, check: 
     mesh = problem.section.mesh
     fig = Figure(figsize=(11, 4.2))
     FigureCanvasAgg(fig)
+    # fixed margins (room for the right panel's second axis): a layout pass costs more than the drawing
+    fig.subplots_adjust(left=0.065, right=0.925, bottom=0.13, top=0.91, wspace=0.32)
     left, right = fig.subplots(1, 2)
 
     faces = [(f"free, {c.name}", c.sides.facets, c.sigma_f, "o") for c in charges.conductors if c.sides.facets.size]
@@ -88,6 +90,5 @@ def plot_superposition(problem: AssembledProblem, charges: ChargeResult, check: 
         title = "Superposition check: " + (check.note if not check.checked else "no line point clear of the faces")
         right.text(0.5, 0.5, title, ha="center", va="center", wrap=True, fontsize=9, transform=right.transAxes)
     right.set_title(title, fontsize=10)
-    fig.tight_layout()
     fig.set_dpi(DPI)
     return _save(fig, path)

@@ -6,6 +6,7 @@ file is complete, so a failed run never leaves a half-written report.
 
 from __future__ import annotations
 
+import base64
 import json
 import math
 import os
@@ -19,6 +20,7 @@ from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescap
 
 from .errors import ReportError
 from .pipeline import SectionResult
+from .probes import csv_name, figure_name, probe_results, sample_probe, write_csv
 from .results import build_results
 from .superposition import check_superposition
 
@@ -53,6 +55,10 @@ def _render_html(results: dict, figures: list[dict[str, str]]) -> str:
                                                      L="_per_m" if planar else "", PER="/m" if planar else "")
 
 
+def _data_uri(path: Path) -> str:
+    return "data:image/png;base64," + base64.b64encode(path.read_bytes()).decode("ascii")
+
+
 def _json_default(value):
     if hasattr(value, "tolist"):
         return value.tolist()
@@ -81,6 +87,11 @@ def write_report(
             on_step("results")
         superposition = check_superposition(result.solution)
         results = build_results(result, superposition)
+        probes = [sample_probe(result.solution, result.fields, line) for line in result.case.probes]
+        results["probe_lines"] = [{**probe_results(p), "figure_file": figure_name(p.line) if with_figures else None}
+                                  for p in probes]
+        for samples in probes:
+            write_csv(samples, staging / csv_name(samples.line))
         figure_list: list[dict[str, str]] = []
         if with_figures:
             from . import figures as fig  # matplotlib is slow to import: only when drawing
@@ -108,12 +119,18 @@ def write_report(
                 plots.append(("superposition.png", "Charge superposition check: free and bound charge along the faces; "
                               "V rebuilt from them against the FE potential along a line",
                               lambda p: plot_superposition(result.problem, result.charges, superposition, p)))
+            if probes:
+                from .figures_probes import plot_probe
+
+                plots += [(figure_name(p.line), f"Probe line {p.line.name}: V, |E| and share of strength along it",
+                           lambda path, p=p: plot_probe(p, path, result.case.hotspot_fraction)) for p in probes]
             try:
                 for name, caption, draw in plots:
                     if on_step:
                         on_step(f"figure {name}")
                     draw(staging / name)
-                    figure_list.append({"file": name, "caption": caption})
+                    # embedded, so that report.html alone shows every figure; the PNG files stay beside it
+                    figure_list.append({"file": name, "caption": caption, "data": _data_uri(staging / name)})
             finally:
                 fig.forget_binnings()  # the figures of this model are drawn: its pixel binnings can go
         if on_step:

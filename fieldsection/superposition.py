@@ -355,14 +355,17 @@ def _affine(mesh) -> np.ndarray:
     return (np.abs(middle - chord).max(axis=(0, 1)) <= 1e-9 * size)
 
 
-def _containing_elements(mesh, points: np.ndarray, candidates: int = 12) -> tuple[np.ndarray, np.ndarray]:
+def _containing_elements(mesh, points: np.ndarray, candidates: int = 12,
+                         allowed: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """The corner triangle holding each point (n, 2) of a straight line, -1 where none of the nearest elements
     by centroid does, and the point's reference coordinates in it (2, n). Only the elements whose bounding
-    boxes the line's box touches are searched (a thin strip of the mesh, not all of it)."""
+    boxes the line's box touches are searched (a thin strip of the mesh, not all of it), and of those only
+    the ``allowed`` ones (a bool per element) when given."""
     low, high = points.min(axis=0), points.max(axis=0)
     x, y = mesh.p[0][mesh.t], mesh.p[1][mesh.t]  # (3, ne)
     crossing = np.flatnonzero((x.min(axis=0) <= high[0]) & (x.max(axis=0) >= low[0])
-                              & (y.min(axis=0) <= high[1]) & (y.max(axis=0) >= low[1]))
+                              & (y.min(axis=0) <= high[1]) & (y.max(axis=0) >= low[1])
+                              & (True if allowed is None else allowed))
     if crossing.size == 0:
         return np.full(len(points), -1), np.zeros((2, len(points)))
     centroid = np.stack([x[:, crossing].mean(axis=0), y[:, crossing].mean(axis=0)], axis=1)

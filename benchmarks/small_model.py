@@ -1,0 +1,169 @@
+"""The small model in about a second: the demo and a 1e4-node case against their bare parts (issue 14, part 4).
+
+Run on demand (never in the test suite):
+
+    python benchmarks/small_model.py
+
+Each measurement runs in a fresh child process (``run._in_child``); compare the ratios of one run, not
+seconds across runs (the machine is shared). Printed, and written to benchmarks/results/small-<time>.json:
+
+- the demo (geometries/busbar_laminated.toml, adaptive) end to end without figures, against the bare parts
+  on its final mesh: gmsh meshing that mesh once (the adapter's ``mesh_geometry`` with the last pass's size
+  field: gmsh in its child process and the arrays handed over) + the fastest bare sparse solve of one
+  right-hand side of its reduced matrix (target 1.5x);
+- the demo's figures, together (the report with figures minus the report without; target 1 s);
+- a 1e4-node single-mesh P1 case (benchmarks/busbar_box.geo) end to end with figures, against gmsh alone at
+  that size + the fastest bare solve (target: under 1.5 s; printed as seconds and as the ratio).
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+import tempfile
+import time
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent))  # the working tree's fieldsection
+sys.path.insert(0, str(HERE))
+import run as bench  # noqa: E402  (benchmarks/run.py: child processes, bare gmsh and bare solvers)
+
+DEMO = HERE.parent / "geometries" / "busbar_laminated.toml"
+TARGETS = {"demo_end_to_end_ratio": 1.5, "demo_figures_seconds": 1.0, "small_case_with_figures_seconds": 1.5}
+
+
+def _save_system(problem, path: str) -> int:
+    import scipy.sparse as sp
+
+    from fieldsection.problem import conductor_indicator
+
+    free = problem.free_dofs
+    K = problem.stiffness
+    sp.save_npz(path + ".A.npz", K[free][:, free].tocsc(), compressed=False)
+    np.save(path + ".B.npy", -(K[free] @ conductor_indicator(problem, problem.fixed)))
+    return int(free.size)
+
+
+def demo(reports: str, path: str) -> dict:
+    """The demo end to end without figures, then its figures; saves the final reduced system and size field."""
+    import pickle
+
+    import fieldsection.pipeline as pipeline
+    from fieldsection import analyse, load_case
+    from fieldsection.report import write_report
+
+    fields = []
+    meshing = pipeline.mesh_geometry
+
+    def recording(geometry, settings, names, size_field=None):
+        fields.append(size_field)
+        return meshing(geometry, settings, names, size_field)
+
+    pipeline.mesh_geometry = recording
+    start = time.perf_counter()
+    case = load_case(DEMO)
+    result = analyse(case)
+    write_report(result, reports, with_figures=False)
+    plain = time.perf_counter() - start
+    start = time.perf_counter()
+    write_report(result, reports, with_figures=True)
+    with_figures = time.perf_counter() - start
+    start = time.perf_counter()
+    write_report(result, reports, with_figures=False)
+    report_only = time.perf_counter() - start
+    unknowns = _save_system(result.problem, path)
+    with open(path + ".field.pkl", "wb") as handle:
+        pickle.dump(fields[-1], handle)
+    return {"seconds_without_figures": plain, "report_with_figures": with_figures, "report_without_figures":
+            report_only, "figures_seconds": with_figures - report_only, "stages": result.stage_seconds,
+            "passes": len(result.passes), "nodes": int(result.section.mesh.nvertices),
+            "dofs": int(result.problem.ndofs), "unknowns": unknowns, "solver": result.solution.solver}
+
+
+def demo_meshing(path: str) -> dict:
+    """gmsh meshing the demo's final mesh once, with the last pass's size field."""
+    import pickle
+
+    from fieldsection import load_case
+    from fieldsection.gmsh_adapter import mesh_geometry
+
+    case = load_case(DEMO)
+    with open(path + ".field.pkl", "rb") as handle:
+        field = pickle.load(handle)
+    start = time.perf_counter()
+    raw = mesh_geometry(case.geometry, case.mesh, case.conductor_names, field)
+    return {"seconds": time.perf_counter() - start, "nodes": int(len(raw.points))}
+
+
+def small_case(h_mm: float, reports: str, path: str) -> dict:
+    """The benchmark busbar at about 1e4 nodes, P1, one mesh, end to end with figures."""
+    from fieldsection import analyse
+    from fieldsection.report import write_report
+
+    start = time.perf_counter()
+    result = analyse(bench._case(h_mm, 1))
+    write_report(result, reports, with_figures=True)
+    seconds = time.perf_counter() - start
+    unknowns = _save_system(result.problem, path)
+    return {"seconds": seconds, "stages": result.stage_seconds, "nodes": int(result.section.mesh.nvertices),
+            "unknowns": unknowns}
+
+
+def _fastest_solve(path: str, unknowns: int) -> tuple[str, float]:
+    runs = {name: bench._in_child(bench.bare_solve, path, name) for name in bench._solver_names(unknowns, False)}
+    timed = {n: r["seconds"] for n, r in runs.items() if np.isfinite(r.get("seconds", float("nan")))}
+    best = min(timed, key=timed.get)
+    return best, timed[best]
+
+
+def main() -> int:
+    out: dict = {"when": datetime.now(timezone.utc).isoformat(timespec="seconds"), "targets": TARGETS}
+    with tempfile.TemporaryDirectory() as scratch:
+        reports, path = str(Path(scratch) / "reports"), str(Path(scratch) / "system")
+        print("demo (busbar_laminated, adaptive) ...", flush=True)
+        d = bench._in_child(demo, reports, path)
+        mesh = bench._in_child(demo_meshing, path)
+        solver, solve = _fastest_solve(path, d["unknowns"])
+        bare = mesh["seconds"] + solve
+        out["demo"] = {**d, "bare_meshing": mesh, "bare_solver": solver, "bare_solve_seconds": solve,
+                       "demo_end_to_end_ratio": d["seconds_without_figures"] / bare}
+
+        calibration = bench._in_child(bench.bare_gmsh, 2.0, 6)
+        h = float(np.sqrt(calibration["nodes"] * 4.0 / 1e4))  # nodes ~ 1 / h^2
+        print(f"1e4-node case (h = {h:.3g} mm) ...", flush=True)
+        gmsh_runs = [bench._in_child(bench.bare_gmsh, h, a) for a in (5, 6)]
+        small = bench._in_child(small_case, h, reports, path)
+        solver_small, solve_small = _fastest_solve(path, small["unknowns"])
+        bare_small = min(r["seconds"] for r in gmsh_runs) + solve_small
+        out["small_case"] = {**small, "h_mm": h, "bare_gmsh_seconds": min(r["seconds"] for r in gmsh_runs),
+                             "bare_solver": solver_small, "bare_solve_seconds": solve_small,
+                             "ratio_to_bare_parts": small["seconds"] / bare_small}
+
+    d, s = out["demo"], out["small_case"]
+    print(f"\ndemo: {d['passes']} passes, final mesh {d['nodes']} nodes, {d['dofs']} DOFs ({d['solver']})")
+    print(f"  end to end without figures  {d['seconds_without_figures']:7.2f} s")
+    print(f"  bare: gmsh final mesh {d['bare_meshing']['seconds']:.2f} s + solve ({d['bare_solver']}) "
+          f"{d['bare_solve_seconds']:.3f} s")
+    print(f"  ratio                       {d['demo_end_to_end_ratio']:7.2f}   (target {TARGETS['demo_end_to_end_ratio']})")
+    print(f"  figures together            {d['figures_seconds']:7.2f} s (target {TARGETS['demo_figures_seconds']} s)")
+    stages = sorted(d["stages"].items(), key=lambda kv: -kv[1])[:8]
+    print("  slowest stages: " + ", ".join(f"{k} {v:.2f} s" for k, v in stages))
+    print(f"  report stage without figures {d['report_without_figures']:.2f} s (superposition check, results, VTK)")
+    print(f"\n1e4-node case: {s['nodes']} nodes, P1, one mesh, with figures {s['seconds']:.2f} s "
+          f"(target {TARGETS['small_case_with_figures_seconds']} s)")
+    print(f"  bare: gmsh {s['bare_gmsh_seconds']:.3f} s + solve ({s['bare_solver']}) {s['bare_solve_seconds']:.3f} s; "
+          f"ratio {s['ratio_to_bare_parts']:.1f}")
+    folder = HERE / "results"
+    folder.mkdir(exist_ok=True)
+    name = folder / f"small-{datetime.now(timezone.utc).strftime('%Y%m%dT%H%M%S')}.json"
+    name.write_text(json.dumps(out, indent=2, default=float))
+    print(f"\nwritten {name.relative_to(HERE.parent)}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
