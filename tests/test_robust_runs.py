@@ -130,8 +130,11 @@ LONG_SCRIPT = PLATES_GEO + "For i In {1:2000000000}\nEndFor\n"  # keeps gmsh bus
 
 
 def _start(case: Path, reports: Path) -> subprocess.Popen:
+    # Ctrl-C as a terminal delivers it: SIGINT in its default state (a shell's background job ignores it,
+    # and the run would inherit that)
     return subprocess.Popen([*CLI, "run", str(case), "--reports", str(reports), "--quiet", "--no-figures"],
-                            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
 
 
 def _children(pid: int) -> list[int]:
