@@ -167,9 +167,12 @@ def _wait_for_child(process: subprocess.Popen, seconds: float = 120) -> list[int
 def test_ctrl_c_prints_one_line_and_exits_130(tmp_path):
     case, reports = write_case(tmp_path, geo=LONG_SCRIPT), tmp_path / "reports"
     process = _start(case, reports)
-    children = _wait_for_child(process)
-    process.send_signal(signal.SIGINT)
-    _, err = process.communicate(timeout=60)
+    try:
+        children = _wait_for_child(process)
+        process.send_signal(signal.SIGINT)
+        _, err = process.communicate(timeout=60)
+    finally:
+        process.kill()  # never leave a run behind when the test fails
     assert process.returncode == 130
     lines = [line for line in err.splitlines() if line.strip()]
     assert lines == ["fieldsection: interrupted; no report was written"]
