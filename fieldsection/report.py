@@ -14,7 +14,7 @@ import shutil
 import tempfile
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Callable
+from typing import Callable, Iterator
 
 from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
 
@@ -81,8 +81,7 @@ def write_report(
     except OSError as exc:
         raise ReportError(f"cannot create the reports folder {str(reports_dir)!r}: {exc.strerror}") from None
     target = reports_dir / result.case.name
-    staging = new_staging_folder(reports_dir, result.case.name)
-    try:
+    with built_whole(reports_dir, result.case.name, "the report") as staging:
         if on_step:
             on_step("results")
         superposition = check_superposition(result.solution)
@@ -143,13 +142,6 @@ def write_report(
         (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default, allow_nan=False),
                                              encoding="utf-8")
         (staging / "report.html").write_text(_render_html(results, figure_list), encoding="utf-8")
-        publish_folder(staging, target)
-    except OSError as exc:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise ReportError(f"cannot write the report into {str(target)!r}: {exc}; no report was written") from exc
-    except BaseException:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise
     return target
 
 
@@ -165,6 +157,23 @@ def new_staging_folder(parent: Path, name: str) -> Path:
     os.umask(umask)
     os.chmod(staging, 0o777 & ~umask)  # mkdtemp makes it private; a report folder is an ordinary one
     return staging
+
+
+@contextmanager
+def built_whole(parent: Path, name: str, what: str) -> Iterator[Path]:
+    """A staging folder for ``parent/name``, published whole when the block ends without error; on any error
+    it is removed and nothing is published (``what`` names the folder in the message of a disk error)."""
+    target = parent / name
+    staging = new_staging_folder(parent, name)
+    try:
+        yield staging
+        publish_folder(staging, target)
+    except OSError as exc:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise ReportError(f"cannot write {what} into {str(target)!r}: {exc}; no report was written") from exc
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
 
 
 def publish_folder(staging: Path, target: Path) -> None:

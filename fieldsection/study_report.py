@@ -219,7 +219,7 @@ def _json_default(value):
 
 def write_study_report(study: Study, table: StudyTable, search: Any, reports_dir: Path, runner: Any) -> Path:
     """Write ``reports_dir/<study>/`` atomically (built beside it, renamed into place) and return its path."""
-    from .report import new_staging_folder, publish_folder
+    from .report import built_whole
     from .study_run import LOG_FILE
 
     try:
@@ -227,8 +227,7 @@ def write_study_report(study: Study, table: StudyTable, search: Any, reports_dir
     except OSError as exc:
         raise ReportError(f"cannot create the reports folder {str(reports_dir)!r}: {exc.strerror}") from None
     target = reports_dir / study.name
-    staging = new_staging_folder(reports_dir, study.name)
-    try:
+    with built_whole(reports_dir, study.name, "the study report") as staging:
         links, search_links = {}, {}
         for row in table.rows:
             source = runner.cache.report(row["input_key"])
@@ -266,11 +265,4 @@ def write_study_report(study: Study, table: StudyTable, search: Any, reports_dir
         tail = "\n".join(log_text.splitlines()[-40:])
         (staging / "index.html").write_text(_render(study, table, search, plots, links, search_links, tail),
                                             encoding="utf-8")
-        publish_folder(staging, target)
-    except OSError as exc:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise ReportError(f"cannot write the study report into {str(target)!r}: {exc}; no report was written") from exc
-    except BaseException:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise
     return target
