@@ -482,6 +482,7 @@ def _refuse_near_misses(gmsh, samples: dict[int, np.ndarray], curves: dict, scal
     with sane elements (gmsh may not even finish). The distance is measured from every sample point of a
     curve to the nearest segments of the other curves' sampled polylines.
     """
+    from scipy import sparse
     from scipy.spatial import cKDTree
 
     tags = np.array(sorted(samples))
@@ -493,7 +494,13 @@ def _refuse_near_misses(gmsh, samples: dict[int, np.ndarray], curves: dict, scal
     extent = float(np.ptp(points, axis=0).max())
     if extent <= 0:
         return
-    ends = {int(t): {abs(p) for _, p in gmsh.model.getBoundary([(1, int(t))], False, False)} for t in tags}
+    # curve x point incidence; two curves are adjacent when they share an end point
+    ends = [[abs(p) for _, p in gmsh.model.getBoundary([(1, int(t))], False, False)] for t in tags]
+    rows = np.repeat(np.arange(tags.size), [len(e) for e in ends])
+    columns = np.array([p for e in ends for p in e], dtype=np.int64)
+    incidence = sparse.csr_matrix((np.ones(rows.size), (rows, columns)), shape=(tags.size, columns.max(initial=0) + 1))
+    adjacent = (incidence @ incidence.T).tocsr()
+    curve_index = np.searchsorted(tags, owner)  # sample -> row of its curve
     k = min(12, len(points))
     _, near = cKDTree(points).query(points, k=k)
     near = near.reshape(len(points), -1)
@@ -509,8 +516,8 @@ def _refuse_near_misses(gmsh, samples: dict[int, np.ndarray], curves: dict, scal
         t = np.clip(((points[:, None, :] - a) * d).sum(-1) / length2, 0.0, 1.0)
         gaps = np.minimum(gaps, np.hypot(*(points[:, None, :] - (a + t[..., None] * d)).transpose(2, 0, 1)))
     other = owner[near] != owner[:, None]
-    shared = np.array([[bool(ends[int(i)] & ends[int(j)]) for j in row] for i, row in zip(owner, owner[near])]) \
-        if other.any() else np.zeros_like(other)
+    pairs = np.broadcast_arrays(curve_index[:, None], curve_index[near])
+    shared = np.asarray(adjacent[pairs[0].ravel(), pairs[1].ravel()]).reshape(near.shape) > 0
     # curves that touch or overlap without a shared point are the mesh check's to name (unfragmented surfaces)
     gaps = np.where(other & ~shared & (gaps > 1e-9 * extent), gaps, np.inf)
     worst = np.unravel_index(np.argmin(gaps), gaps.shape)
