@@ -8,8 +8,8 @@ the culprit and the fix), 1 an unexpected failure, 130 interrupted (Ctrl-C).
 from __future__ import annotations
 
 import argparse
-import os
 import logging
+import os
 import sys
 import time
 from dataclasses import replace
@@ -194,6 +194,8 @@ def _verify(args: argparse.Namespace) -> int:
         print(f"{passed} of {len(suite.checks)} checks passed in {suite.seconds:.1f} s "
               f"({'full' if args.full else 'fast'} mode); report: {folder}/verification.md")
     return EXIT_OK if suite.passed else EXIT_FAILURE
+
+
 class _AboveTheBar(logging.Handler):
     """Log lines written above a tqdm progress bar."""
 
@@ -204,7 +206,6 @@ class _AboveTheBar(logging.Handler):
 
 
 def _study(args: argparse.Namespace) -> int:
-
     from .study import load_study, run_settings
     from .study_run import run_study
 

@@ -29,7 +29,7 @@ from typing import Any, Callable, Iterable, Mapping, Sequence
 
 from . import __version__
 from .errors import FieldSectionError, ReportError
-from .report import new_staging_folder, remove_stale_folders
+from .report import new_staging_folder, publish_folder, remove_stale_folders
 from .study import RunSettings, Study, StudyError, Variant
 
 log = logging.getLogger("fieldsection.study")
@@ -233,12 +233,13 @@ class VariantCache:
                 for name, data in files.items():
                     (staging / REPORT_FOLDER / name).write_bytes(data)
             (staging / RECORD_FILE).write_text(json.dumps(record, indent=1), encoding="utf-8")
-            if target.exists():  # a record for the same input: the newer one wins
-                shutil.rmtree(target, ignore_errors=True)
-            os.replace(staging, target)
+            publish_folder(staging, target)  # a record for the same input: the newer one wins
         except OSError as exc:
             shutil.rmtree(staging, ignore_errors=True)
             raise ReportError(f"cannot store a variant in the study cache {str(self.folder)!r}: {exc}") from exc
+        except BaseException:
+            shutil.rmtree(staging, ignore_errors=True)
+            raise
 
     def note(self, line: str) -> None:
         """Append a line to the cache's run log (kept across runs) and to the logger."""

@@ -14,9 +14,7 @@ import json
 import math
 import os
 import platform
-import shutil
 import sys
-import tempfile
 import time
 import tomllib
 from dataclasses import dataclass, field
@@ -380,16 +378,9 @@ def write_suite_report(suite: SuiteResult, reports_dir: str | os.PathLike) -> Pa
         reports_dir.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise ReportError(f"cannot create the reports folder {str(reports_dir)!r}: {exc.strerror}") from None
-    target = reports_dir / "verification"
-    staging = Path(tempfile.mkdtemp(prefix=".verification.partial-", dir=reports_dir))
-    try:
+    from .report import built_whole
+
+    with built_whole(reports_dir, "verification", "the verification report") as staging:
         (staging / "verification.json").write_text(json.dumps(suite_json(suite), indent=2), encoding="utf-8")
         (staging / "verification.md").write_text(_markdown(suite), encoding="utf-8")
-        os.chmod(staging, 0o755)
-        if target.exists():
-            shutil.rmtree(target)
-        staging.rename(target)
-    except OSError as exc:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise ReportError(f"cannot write the verification report into {str(target)!r}: {exc}") from exc
-    return target
+    return reports_dir / "verification"
