@@ -1,10 +1,11 @@
 """Adaptive refinement: where to make the next mesh finer, and what each pass leaves for the record.
 
-The next mesh is a new gmsh mesh of the same geometry (so nodes stay on the true curves), driven by
-a size field built from the error indicator. For a smooth solution of order p the indicator behaves
-as eta_K^2 ~ h_K^(2p + 2); asking every element for the same eta (equidistribution, the usual
-optimality criterion of adaptive finite elements) and the mesh to grow by a chosen factor gives each
-element's new size in closed form. Sizes change by at most x4 finer or x2 coarser per pass.
+The next mesh is the last one refined where the error indicator asks (``local_refinement``; new
+nodes on curves go onto the true curves), to the sizes computed here. For a smooth solution of
+order p the indicator behaves as eta_K^2 ~ h_K^(2p + 2); asking every element for the same eta
+(equidistribution, the usual optimality criterion of adaptive finite elements) and the mesh to grow
+by a chosen factor gives each element's new size in closed form. Sizes change by at most x4 finer
+per pass; refinement does not coarsen, so an element asked to grow keeps its size.
 """
 
 from __future__ import annotations
@@ -35,8 +36,9 @@ def vertex_sizes(section: SectionMesh) -> np.ndarray:
     return total / np.maximum(count, 1)
 
 
-def wanted_sizes(section: SectionMesh, indicator: np.ndarray, order: int, growth: float) -> SizeField:
-    """A size field for a mesh about ``growth`` times as many elements, with the error equidistributed."""
+def wanted_element_sizes(section: SectionMesh, indicator: np.ndarray, order: int, growth: float) -> np.ndarray:
+    """The size (m) each element wants so that the mesh has about ``growth`` times as many elements with
+    the error equidistributed; ``inf`` in the mapped open space (it is not refined)."""
     h = element_sizes(section)
     drawn = ~section.exterior
     eta2 = np.where(drawn, indicator, 0.0)
@@ -58,8 +60,14 @@ def wanted_sizes(section: SectionMesh, indicator: np.ndarray, order: int, growth
         middle = 0.5 * (low + high)
         count = (steps(np.exp(middle))[drawn] ** -2.0).sum()
         low, high = (middle, high) if count > wanted else (low, middle)
-    step = steps(np.exp(high))
-    new_h = h * step
+    return np.where(drawn, h * steps(np.exp(high)), np.inf)
+
+
+def wanted_sizes(section: SectionMesh, indicator: np.ndarray, order: int, growth: float) -> SizeField:
+    """The same as a size field at the vertices (each takes the smallest size wanted around it), for
+    gmsh to mesh the geometry afresh."""
+    new_h = wanted_element_sizes(section, indicator, order, growth)
+    drawn = ~section.exterior
     mesh = section.mesh
     sizes = np.full(mesh.nvertices, np.inf)
     corners = mesh.t[:, drawn]

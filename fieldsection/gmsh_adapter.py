@@ -28,6 +28,7 @@ from .errors import GeometryError, MeshError
 from .geometry import screen_script
 from .mesh_budget import CurveSizing, NodeEstimate, SurfaceSizing, default_node_limit, estimate_nodes, refuse_if_too_big
 from .limits import anonymous_memory, current_gmsh_limits, machine_memory
+from .local_refinement import CurveShape
 from .splitting import Snap, split_into_four, with_mid_edge_nodes
 
 #: seconds gmsh may take to read a script and mesh it before it is stopped (a mistyped size can ask for
@@ -70,6 +71,10 @@ class RawMesh:
     #: nodes at the geometry's corners: ends of open curves and points where two or more curves meet
     corner_nodes: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     splits: int = 0  # how many times every triangle of gmsh's mesh was split into four
+    #: the shape of every curved (not straight) geometry curve, by gmsh entity, and its segments (corner node
+    #: pairs): what ``local_refinement`` needs to put new nodes on the curves without gmsh
+    curve_shapes: Mapping[int, CurveShape] = field(default_factory=dict)
+    shaped_segments: Mapping[int, np.ndarray] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         if self.points.ndim != 2 or self.points.shape[1] != 2:
@@ -560,6 +565,24 @@ def curve_projection(gmsh) -> Snap:
     return snap
 
 
+#: points per curved geometry curve kept for local refinement: a cubic spline through them is within
+#: ~1e-12 of the radius of a circular arc (error ~ R (angle step)^4 / 384)
+SHAPE_SAMPLES = 1025
+
+
+def curve_shapes(gmsh, entities, scale: float) -> dict[int, CurveShape]:
+    """Each of the curve ``entities`` of gmsh's current model as ``SHAPE_SAMPLES`` points evenly spaced in
+    its parameter, in metres (straight lines are left out: their midpoints need no projection)."""
+    out = {}
+    for entity in entities:
+        if gmsh.model.getType(1, entity) == "Line":
+            continue
+        low, high = gmsh.model.getParametrizationBounds(1, entity)
+        xyz = np.asarray(gmsh.model.getValue(1, entity, np.linspace(low[0], high[0], SHAPE_SAMPLES))).reshape(-1, 3)
+        out[int(entity)] = CurveShape(np.ascontiguousarray(xyz[:, :2] * scale))
+    return out
+
+
 def _automatic_splits(gmsh) -> tuple[int, list[str], bool]:
     """Choose k for a mesh whose refinements are left to the tool; leaves gmsh's mesh in place if it is the
     coarse mesh for that k, else none. Returns k, gmsh's messages from before the probes (the logger then
@@ -687,6 +710,8 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
     for _ in range(splits):
         coords, triangles, entity_segments = split_into_four(coords, triangles, entity_segments, snap_segments)
     entity_rows = {e: (a * 4**splits, b * 4**splits) for e, (a, b) in entity_rows.items()}
+    shapes = curve_shapes(gmsh, [e for e, segs in entity_segments.items() if len(segs)], scale)
+    shaped_segments = {e: entity_segments[e] for e in shapes}
     if settings.curved:
         coords, triangles = with_mid_edge_nodes(coords, triangles, entity_segments, snap_segments)
 
@@ -720,6 +745,7 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
         coords = coords[used]
         triangles = remap[triangles]
         curve_groups = {k: remap[v] for k, v in curve_groups.items()}
+        shaped_segments = {e: remap[v] for e, v in shaped_segments.items()}
         corner_nodes = remap[corner_nodes]
         for name, segs in curve_groups.items():
             if (segs < 0).any():
@@ -727,4 +753,7 @@ def _mesh_current_model(gmsh, settings: MeshSettings, scale: float, electrode_na
     points = np.ascontiguousarray(coords[:, :2] * scale, dtype=np.float64)
     if not math.isfinite(float(points.sum())):
         raise MeshError("gmsh returned non-finite node coordinates")
-    return RawMesh(points, triangles, surface_groups, curve_groups, warnings, corner_nodes[corner_nodes >= 0], splits)
+    # a curve whose nodes lie on no triangle (a stray construction line) is no boundary to refine
+    shaped_segments = {e: v for e, v in shaped_segments.items() if (v >= 0).all()}
+    return RawMesh(points, triangles, surface_groups, curve_groups, warnings, corner_nodes[corner_nodes >= 0], splits,
+                   {e: shapes[e] for e in shaped_segments}, shaped_segments)

@@ -1,8 +1,8 @@
 """The pipeline, stage by stage: case -> mesh -> assembled problem -> solution -> derived quantities.
 
 Each stage's output is an immutable value passed downstream; nothing reaches back upstream. With
-adaptive refinement the whole chain runs again on a finer mesh, driven by the previous pass's
-error indicator, until the capacitance and every non-singular peak field settle.
+adaptive refinement the whole chain runs again on a finer mesh (gmsh's first mesh, refined where the
+previous pass's error indicator asks), until the capacitance and every non-singular peak field settle.
 """
 
 from __future__ import annotations
@@ -14,7 +14,7 @@ from typing import Callable, Mapping
 import numpy as np
 from scipy.spatial import cKDTree
 
-from .adapt import PassRecord, region_vertex_fields, wanted_sizes
+from .adapt import PassRecord, region_vertex_fields, wanted_element_sizes
 from .analysis import check_against_case, electrostatic_case, run_analysis
 from .capacitance import CapacitanceResult, compute_capacitance
 from .case import Case
@@ -22,8 +22,9 @@ from .certificate import SINGULAR, PeakCertificate, certify
 from .charges import ChargeResult, compute_charges
 from .discharge import CoronaCheck, GasGapScreening, screen_corona, screen_gas_gaps
 from .fields import ElementFields, element_fields
-from .gmsh_adapter import SizeField, mesh_geometry
+from .gmsh_adapter import RawMesh, mesh_geometry
 from .hotspots import HotspotResult, find_hotspots
+from .local_refinement import refined_raw
 from .mesh import SectionMesh, add_open_space, build_section_mesh, find_open_circle
 from .problem import AssembledProblem, assemble
 from .recovery import Recovery, recover_field
@@ -83,6 +84,7 @@ class _Pass(_Computed):
     """One pass of the loop; once a newer pass exists only ``record`` is kept (the rest is None)."""
 
     record: PassRecord
+    raw: RawMesh | None = None  # the mesh as meshed or refined, before open space: the next pass refines it
 
 
 def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> SectionResult:
@@ -102,18 +104,21 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
 
     settings = case.refinement
     passes: list[_Pass] = []
-    size_field: SizeField | None = None
+    next_mesh: RawMesh | None = None  # None: gmsh meshes the geometry
     stop_reason = "adaptive refinement is off: one mesh" if not settings.adaptive else ""
     growth = GROWTH_PER_PASS
     overshoot = FIRST_OVERSHOOT  # DOFs gmsh delivers / DOFs asked for, learnt from the passes so far
     peaks: tuple[HotspotResult, Certificates] | None = None  # of the last pass, once checked
 
-    def refine(source: _Pass):
-        return stage("refine", lambda: wanted_sizes(source.section, source.recovery.refinement_indicator,
-                                                    case.mesh.element_order, growth))
+    def refine(source: _Pass) -> RawMesh:
+        def work() -> RawMesh:
+            wanted = wanted_element_sizes(source.section, source.recovery.refinement_indicator,
+                                          case.mesh.element_order, growth)
+            return refined_raw(source.raw, wanted[:len(source.raw.triangles)], case.mesh.curved)
+        return stage("refine", work)
 
     while True:
-        current = _one_pass(case, size_field, stage)
+        current = _one_pass(case, next_mesh, stage)
         if passes:
             overshoot = current.problem.ndofs / (passes[-1].record.ndofs * growth)
         if passes and current.problem.ndofs > settings.max_dofs:
@@ -122,10 +127,10 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
             if growth * overshoot < 1.15:
                 stop_reason = f"DOF budget of {settings.max_dofs} spent"
                 break
-            size_field = refine(passes[-1])
+            next_mesh = refine(passes[-1])
             continue
         if passes:  # an earlier pass lives on as its record only: its mesh, matrix and fields are freed
-            passes[-1] = _Pass(None, None, None, None, None, None, None, None, passes[-1].record)
+            passes[-1] = _Pass(None, None, None, None, None, None, None, None, passes[-1].record, None)
         passes.append(current)
         peaks = None
         if not settings.adaptive:
@@ -143,7 +148,7 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
             stop_reason = f"DOF budget of {settings.max_dofs} spent"
             break
         growth = target / overshoot
-        size_field = refine(current)
+        next_mesh = refine(current)
 
     last = passes[-1]
     problem = last.problem
@@ -164,18 +169,22 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
                          stop_reason=stop_reason, corona=corona, conduction=conduction)
 
 
-def _one_pass(case: Case, size_field: SizeField | None, stage) -> _Pass:
+def _one_pass(case: Case, refined: RawMesh | None, stage) -> _Pass:
     start = time.perf_counter()
-    raw = stage("mesh", lambda: mesh_geometry(case.geometry, case.mesh, case.conductor_names, size_field))
+    own = refined if refined is not None else stage("mesh", lambda: mesh_geometry(case.geometry, case.mesh,
+                                                                                  case.conductor_names))
+    raw = own
     circle = None
     if case.outer_boundary == "open":
         circle = find_open_circle(raw, case.conductor_names | case.insulated_curves, case.model == "axisymmetric")
     raw = stage("open space", lambda: raw if circle is None else add_open_space(raw, circle))
     section = stage("convert mesh", lambda: build_section_mesh(raw, circle))
-    del raw  # gmsh's arrays: ~70 MB at a million nodes, not needed past this point
+    del raw  # gmsh's arrays: ~70 MB at a million nodes; kept (as ``own``) only for the next pass to refine
+    if not case.refinement.adaptive:
+        own = None
     problem = stage("assemble", lambda: assemble(case, section))
-    if size_field is not None and problem.ndofs > case.refinement.max_dofs:
-        return _Pass(section, problem, None, None, None, None, None, None, None)  # over budget: not solved
+    if refined is not None and problem.ndofs > case.refinement.max_dofs:
+        return _Pass(section, problem, None, None, None, None, None, None, None, own)  # over budget: not solved
     solution = stage("solve", lambda: solve(problem, case.solver))
     fields = stage("fields", lambda: element_fields(solution))
     recovery = stage("recovery", lambda: recover_field(solution, case.refinement.adaptive, fields))
@@ -187,7 +196,7 @@ def _one_pass(case: Case, size_field: SizeField | None, stage) -> _Pass:
                         capacitance.energy_per_length, recovery.estimated_error,
                         {name: float(v.values.max()) for name, v in vertex_fields.items()}, vertex_fields,
                         time.perf_counter() - start)
-    return _Pass(section, problem, solution, fields, charges, capacitance, recovery, peak_search_field, record)
+    return _Pass(section, problem, solution, fields, charges, capacitance, recovery, peak_search_field, record, own)
 
 
 def _settled(case: Case, passes: list[_Pass]) -> tuple[bool, tuple[HotspotResult, Certificates] | None]:
