@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass, field, fields as dataclass_fields
+from functools import partial
 from typing import Callable, Mapping
 
 import numpy as np
@@ -171,15 +172,15 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
 
 def _one_pass(case: Case, refined: RawMesh | None, stage) -> _Pass:
     start = time.perf_counter()
-    own = refined if refined is not None else stage("mesh", lambda: mesh_geometry(case.geometry, case.mesh,
-                                                                                  case.conductor_names))
-    raw = own
+    own = refined if refined is not None else stage("mesh", partial(mesh_geometry, case.geometry, case.mesh,
+                                                                    case.conductor_names))
     circle = None
     if case.outer_boundary == "open":
-        circle = find_open_circle(raw, case.conductor_names | case.insulated_curves, case.model == "axisymmetric")
-    raw = stage("open space", lambda: raw if circle is None else add_open_space(raw, circle))
-    section = stage("convert mesh", lambda: build_section_mesh(raw, circle))
-    del raw  # gmsh's arrays: ~70 MB at a million nodes; kept (as ``own``) only for the next pass to refine
+        circle = find_open_circle(own, case.conductor_names | case.insulated_curves, case.model == "axisymmetric")
+    raw = stage("open space", (lambda: own) if circle is None else partial(add_open_space, own, circle))
+    section = stage("convert mesh", partial(build_section_mesh, raw, circle))
+    # gmsh's arrays (~70 MB at a million nodes) are kept, as ``own``, only for the next pass to refine
+    del raw
     if not case.refinement.adaptive:
         own = None
     problem = stage("assemble", lambda: assemble(case, section))
