@@ -16,7 +16,6 @@ from functools import cached_property
 import numpy as np
 from scipy.spatial import cKDTree
 
-from .gmsh_adapter import SizeField
 from .mesh import SectionMesh, largest_at_vertices
 
 FINEST_STEP, COARSEST_STEP = 0.25, 2.0
@@ -61,19 +60,6 @@ def wanted_element_sizes(section: SectionMesh, indicator: np.ndarray, order: int
         count = (steps(np.exp(middle))[drawn] ** -2.0).sum()
         low, high = (middle, high) if count > wanted else (low, middle)
     return np.where(drawn, h * steps(np.exp(high)), np.inf)
-
-
-def wanted_sizes(section: SectionMesh, indicator: np.ndarray, order: int, growth: float) -> SizeField:
-    """The same as a size field at the vertices (each takes the smallest size wanted around it), for
-    gmsh to mesh the geometry afresh."""
-    new_h = wanted_element_sizes(section, indicator, order, growth)
-    drawn = ~section.exterior
-    mesh = section.mesh
-    sizes = np.full(mesh.nvertices, np.inf)
-    corners = mesh.t[:, drawn]
-    for row in corners:  # three rows: a vertex takes the smallest size wanted around it
-        np.minimum.at(sizes, row, new_h[drawn])
-    return SizeField(mesh.p.T.copy(), corners.T.copy(), sizes)
 
 
 @dataclass(frozen=True)

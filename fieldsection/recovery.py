@@ -22,7 +22,7 @@ from functools import cached_property
 import numpy as np
 import scipy.sparse as sp
 from scipy.constants import epsilon_0
-from skfem import Basis, BilinearForm, ElementDG
+from skfem import Basis
 
 from .errors import SolverError
 from .fields import ElementFields, gradient_at_points
@@ -67,48 +67,41 @@ PROJECTION_TOLERANCE, PROJECTION_MAX_ITERATIONS = 1e-10, 2000
 
 def conjugate_gradients(matrix: sp.spmatrix, rhs: np.ndarray, inverse_diagonal: np.ndarray) -> np.ndarray:
     """Solves ``matrix @ x = rhs`` (rhs (n, k), k columns at once) for a symmetric positive definite mass
-    matrix by Jacobi-preconditioned conjugate gradients.
+    matrix by Jacobi-preconditioned conjugate gradients (as plain CG on the symmetrically scaled matrix).
 
     A diagonally scaled mass matrix is well conditioned on any shape-regular mesh, whatever its size
     (Wathen, IMA J. Numer. Anal. 7, 1987): about 25 iterations to 1e-10 on the demo, so this is faster
     than a factorisation (which took ~1 s there) and its memory stays linear in the mesh. The columns
     share each product with the matrix."""
-    x = np.zeros_like(rhs)
-    r = rhs.copy()
-    z = inverse_diagonal[:, None] * r
-    p = z.copy()
-    rz = (r * z).sum(axis=0)
-    stop = PROJECTION_TOLERANCE * np.linalg.norm(rhs, axis=0)
+    scale = np.sqrt(inverse_diagonal)
+    scaled = sp.csr_matrix(sp.diags(scale) @ matrix @ sp.diags(scale))
+    r = scale[:, None] * rhs
+    y = np.zeros_like(r)
+    p = r.copy()
+    rr = np.einsum("ij,ij->j", r, r)
+    stop = (PROJECTION_TOLERANCE ** 2) * rr
     for _ in range(PROJECTION_MAX_ITERATIONS):
-        if (np.linalg.norm(r, axis=0) <= stop).all():
-            return x
-        q = matrix @ p
-        pq = (p * q).sum(axis=0)
-        alpha = np.divide(rz, pq, out=np.zeros_like(rz), where=pq > 0)
-        x += alpha * p
+        if (rr <= stop).all():
+            return scale[:, None] * y
+        q = scaled @ p
+        pq = np.einsum("ij,ij->j", p, q)
+        alpha = np.divide(rr, pq, out=np.zeros_like(rr), where=pq > 0)
+        y += alpha * p
         r -= alpha * q
-        z = inverse_diagonal[:, None] * r
-        rz, previous = (r * z).sum(axis=0), rz
-        beta = np.divide(rz, previous, out=np.zeros_like(rz), where=previous > 0)
-        p = z + beta * p
+        rr, previous = np.einsum("ij,ij->j", r, r), rr
+        p *= np.divide(rr, previous, out=np.zeros_like(rr), where=previous > 0)
+        p += r
     raise SolverError("the field recovery did not converge (conjugate gradients on the mass matrix); "
                       "report this as a bug")
 
 
-@BilinearForm
-def _mass(u, v, w):
-    return u * v
-
-
-def _values(basis: Basis, coefficients: np.ndarray) -> np.ndarray:
-    """sum_j c_j phi_j at the quadrature points, (nelements, nqp): the values beside
-    ``fields.gradient_at_points`` (scikit-fem's interpolate re-splits its indices on every call)."""
-    dofs = basis.element_dofs
-    return sum(coefficients[dofs[j]][:, None] * np.asarray(basis.basis[j][0]) for j in range(dofs.shape[0]))
-
-
 class _Projector:
-    """L2 projection of fields onto the region-wise continuous space, set up once per mesh."""
+    """L2 projection of fields onto the region-wise continuous space, set up once per mesh.
+
+    The space is the element-local (DG) copy of the solution's space glued wherever elements share a
+    DOF and a region (``glued``: the glued DOF of each element's local function), so the mass matrix
+    and the loads are summed straight into glued DOFs from element arrays: no DG space of its own and
+    no gluing products."""
 
     def __init__(self, solution: Solution):
         problem = solution.problem
@@ -118,15 +111,17 @@ class _Projector:
         basis = Basis(problem.basis.mesh, problem.basis.elem, intorder=2 * order)
         self.basis = basis
         section = problem.section
-        # region-wise continuous space = element-local (DG) DOFs glued wherever they share a global
-        # DOF and a region; one sparse gluing matrix, no loop over regions
-        self.local = Basis(basis.mesh, ElementDG(basis.elem), quadrature=(basis.X, basis.W))
         keys = basis.element_dofs.astype(np.int64) * len(section.region_names) + section.region_of_element[None, :]
         _, glued = np.unique(keys, return_inverse=True)
-        self.glued = glued.reshape(keys.shape)
-        self.glue = sp.csr_matrix((np.ones(self.glued.size), (self.local.element_dofs.ravel(), self.glued.ravel())),
-                                  shape=(self.local.N, int(self.glued.max()) + 1))
-        self._mass = (self.glue.T @ _mass.assemble(self.local) @ self.glue).tocsr()
+        self.glued = glued.reshape(keys.shape)  # (local functions, nelements)
+        self.size = int(self.glued.max()) + 1
+        # shape function values at the quadrature points (local functions, nelements, nqp), and dx
+        self.phi = np.array([np.asarray(basis.basis[j][0]) for j in range(basis.Nbfun)])
+        self.phi_dx = self.phi * basis.dx[None]
+        local = np.einsum("inq,jnq->nij", self.phi_dx, self.phi)  # element mass matrices
+        rows = np.broadcast_to(self.glued.T[:, :, None], local.shape)
+        cols = np.broadcast_to(self.glued.T[:, None, :], local.shape)
+        self._mass = sp.csr_matrix((local.ravel(), (rows.ravel(), cols.ravel())), shape=(self.size, self.size))
         self._inverse_diagonal = 1.0 / self._mass.diagonal()
         eps = weighted_permittivity(basis, section, problem.relative_permittivity, problem.axisymmetric)
         self.eps_dx = np.broadcast_to(eps, basis.dx.shape) * basis.dx
@@ -140,13 +135,10 @@ class _Projector:
     def project(self, E_h: np.ndarray) -> np.ndarray:
         """Coefficients (c, glued DOFs) of the recovered field, for fields (c, nelements, nqp) of any count c
         of components."""
-        local = self.local
-        loads = np.zeros((local.N, len(E_h)))
-        for k, component in enumerate(E_h):
-            weighted = component * local.dx
-            for j in range(local.element_dofs.shape[0]):  # a few local basis functions
-                loads[local.element_dofs[j], k] = (weighted * np.asarray(local.basis[j][0])).sum(axis=1)
-        return conjugate_gradients(self._mass, self.glue.T @ loads, self._inverse_diagonal).T
+        element_loads = np.einsum("jnq,cnq->cjn", self.phi_dx, E_h)
+        loads = np.stack([np.bincount(self.glued.ravel(), weights=load.ravel(), minlength=self.size)
+                          for load in element_loads], axis=1)
+        return conjugate_gradients(self._mass, loads, self._inverse_diagonal).T
 
     def vertex_values(self, coefficients: np.ndarray) -> np.ndarray:
         """E* at element vertices (nelements, 3, 2); Lagrange elements number their vertex DOFs first."""
@@ -154,7 +146,7 @@ class _Projector:
 
     def indicator(self, coefficients: np.ndarray, E_h: np.ndarray) -> np.ndarray:
         """eta_K^2 per element: the weighted energy of E* - E_h."""
-        E_star = np.array([_values(self.local, self.glue @ c) for c in coefficients])
+        E_star = sum(coefficients[:, self.glued[j], None] * self.phi[j] for j in range(len(self.phi)))
         eta2 = (((E_star - E_h) ** 2).sum(axis=0) * self.eps_dx).sum(axis=1)
         # meshed conductors carry no field; the mapped open space is not re-meshed by refinement, and in a
         # body of revolution its image has a kink at infinity that no continuous recovery follows
