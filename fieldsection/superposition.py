@@ -46,6 +46,7 @@ import numpy as np
 from scipy.constants import epsilon_0
 from scipy.spatial import cKDTree
 from skfem import Basis
+from skfem.quadrature import get_quadrature
 
 from .fields import _EDGES, _VERTICES, _is_linear, _linear_gradient, gradient_at_points
 from .mesh import EXTERIOR, linear_gradients_and_areas
@@ -116,20 +117,35 @@ def _edge_quadrature(solution: Solution, elements: np.ndarray, edge: int, linear
         ds = length[:, None] * _GW[None, :]
         n_q = np.broadcast_to(np.stack([nx, ny], axis=1)[:, None, :], E.shape)
         return points, ds, E, n_q, V
-    start, direction = _VERTICES[:, a], _VERTICES[:, b] - _VERTICES[:, a]
-    ref = start[:, None] + direction[:, None] * _GS[None, :]
-    basis = Basis(mesh, problem.basis.elem, quadrature=(ref, _GW), elements=elements)
-    grad = gradient_at_points(basis, solution.potential)  # (2, n, q)
-    V = np.asarray(basis.interpolate(solution.potential))  # (n, q)
-    x = basis.mapping.F(ref, tind=elements)  # (2, n, q)
+    return _curved_edge_quadrature(solution, elements)[edge]
+
+
+def _curved_edge_quadrature(solution: Solution, elements: np.ndarray) -> list[tuple]:
+    """``_edge_quadrature`` of all three local edges of higher-order or curved elements: one basis at the
+    Gauss points of every edge together (a basis costs about as much for nine points as for three)."""
+    problem = solution.problem
+    mesh = problem.section.mesh
+    starts = [_VERTICES[:, a] for a, _ in _EDGES]
+    directions = [_VERTICES[:, b] - _VERTICES[:, a] for a, b in _EDGES]
+    ref = np.hstack([start[:, None] + direction[:, None] * _GS[None, :] for start, direction in zip(starts, directions)])
+    basis = Basis(mesh, problem.basis.elem, quadrature=(ref, np.tile(_GW, 3)), elements=elements)
+    grad = gradient_at_points(basis, solution.potential)  # (2, n, 3q)
+    V = np.asarray(basis.interpolate(solution.potential))  # (n, 3q)
+    x = basis.mapping.F(ref, tind=elements)  # (2, n, 3q)
     jacobian = basis.mapping.DF(ref, tind=elements)
-    tangent = np.einsum("ijnq,j->inq", jacobian, direction)
-    length = np.hypot(tangent[0], tangent[1])
-    normal = np.stack([tangent[1], -tangent[0]]) / length
     centroid = basis.mapping.F(np.array([[1 / 3], [1 / 3]]), tind=elements)[:, :, 0]
-    sign = np.sign(np.einsum("inq,in->nq", normal, x.mean(axis=2) - centroid))[:, :1]
-    normal = np.moveaxis(normal * sign[None], 0, -1)
-    return x[0] + 1j * x[1], length * _GW[None, :], np.moveaxis(-grad, 0, -1), normal, V
+    out = []
+    for edge, direction in enumerate(directions):
+        part = slice(edge * EDGE_POINTS, (edge + 1) * EDGE_POINTS)
+        tangent = np.einsum("ijnq,j->inq", jacobian[:, :, :, part], direction)
+        length = np.hypot(tangent[0], tangent[1])
+        normal = np.stack([tangent[1], -tangent[0]]) / length
+        xe = x[:, :, part]
+        sign = np.sign(np.einsum("inq,in->nq", normal, xe.mean(axis=2) - centroid))[:, :1]
+        normal = np.moveaxis(normal * sign[None], 0, -1)
+        out.append((xe[0] + 1j * xe[1], length * _GW[None, :], np.moveaxis(-grad[:, :, part], 0, -1), normal,
+                    V[:, part]))
+    return out
 
 
 def _interior_quadrature(solution: Solution, elements: np.ndarray):
@@ -141,12 +157,15 @@ def _interior_quadrature(solution: Solution, elements: np.ndarray):
     problem = solution.problem
     mesh = problem.section.mesh
     nodes = np.array([[0.0, 1.0, 0.0, 0.5, 0.5, 0.0], [0.0, 0.0, 1.0, 0.0, 0.5, 0.5]])
-    at_nodes = Basis(mesh, problem.basis.elem, quadrature=(nodes, np.full(6, 1 / 12)), elements=elements)
-    g = gradient_at_points(at_nodes, solution.potential)  # (2, n, 6)
-    basis = Basis(mesh, problem.basis.elem, intorder=2 * problem.element_order, elements=elements)
-    lam = np.vstack([1 - basis.X.sum(axis=0), basis.X])  # barycentric coordinates of the quadrature points (3, q)
+    X, W = get_quadrature(mesh.refdom, 2 * problem.element_order)
+    # one basis at the six nodes and the quadrature points together (its set-up costs most, not its points)
+    basis = Basis(mesh, problem.basis.elem, quadrature=(np.hstack([nodes, X]), np.hstack([np.full(6, 1 / 12), W])),
+                  elements=elements)
+    g = gradient_at_points(basis, solution.potential)[:, :, :6]  # (2, n, 6)
+    dx = basis.dx[:, 6:]
+    lam = np.vstack([1 - X.sum(axis=0), X])  # barycentric coordinates of the quadrature points (3, q)
     dlam = linear_gradients_and_areas(mesh, elements)[0]  # (3, 2, n)
-    divergence = np.zeros((len(elements), basis.X.shape[1]))
+    divergence = np.zeros((len(elements), X.shape[1]))
     for k in range(3):  # vertex shape functions lam_k (2 lam_k - 1)
         divergence += np.einsum("in,in->n", g[:, :, k], dlam[k])[:, None] * (4 * lam[k] - 1)[None, :]
     for node, (i, j) in zip((3, 4, 5), ((0, 1), (1, 2), (0, 2))):  # edge shape functions 4 lam_i lam_j
@@ -154,8 +173,8 @@ def _interior_quadrature(solution: Solution, elements: np.ndarray):
         gj = np.einsum("in,in->n", g[:, :, node], dlam[i])[:, None] * lam[j][None, :]
         divergence += 4 * (gi + gj)
     eps = epsilon_0 * problem.relative_permittivity[elements]
-    x = basis.mapping.F(basis.X, tind=elements)
-    return x[0] + 1j * x[1], (eps - epsilon_0)[:, None] * divergence * basis.dx
+    x = basis.mapping.F(X, tind=elements)
+    return x[0] + 1j * x[1], (eps - epsilon_0)[:, None] * divergence * dx
 
 
 def _sides(problem, mirror: "_Mirror | None" = None):
@@ -198,9 +217,13 @@ def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sid
     conductor, boundary, faces_exterior = sides
     eps = epsilon_0 * problem.relative_permittivity[elements]
     facets, ws, qs, layer_w, layer_m = [], [], [], [], []
-    linear_E = -_linear_gradient(mesh, solution.potential, elements) if _is_linear(problem) else None
+    if _is_linear(problem):
+        linear_E = -_linear_gradient(mesh, solution.potential, elements)
+        edges = [_edge_quadrature(solution, elements, edge, linear_E) for edge in range(3)]
+    else:
+        edges = _curved_edge_quadrature(solution, elements)
     for edge in range(3):
-        w, ds, E, n, V = _edge_quadrature(solution, elements, edge, linear_E)
+        w, ds, E, n, V = edges[edge]
         e_n = np.einsum("nqi,nqi->nq", E, n)
         bound = fields_P_sign * (eps - epsilon_0)[:, None] * e_n * ds  # P . n_out
         c = conductor[edge, elements]
