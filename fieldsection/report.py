@@ -13,10 +13,11 @@ import os
 import shutil
 import tempfile
 from contextlib import contextmanager
+from functools import lru_cache
 from pathlib import Path
 from typing import Callable, Iterator
 
-from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
+from jinja2 import Environment, FileSystemBytecodeCache, PackageLoader, StrictUndefined, select_autoescape
 
 from .errors import ReportError
 from .pipeline import SectionResult
@@ -42,14 +43,44 @@ def _point(value) -> str:
         return "–"
 
 
-def _render_html(results: dict, figures: list[dict[str, str]]) -> str:
+class _QuietBytecodeCache(FileSystemBytecodeCache):
+    """jinja's compiled templates, kept in the temporary folder between runs (compiling the report's
+    template took ~0.3 s of every run); keyed by the template's checksum, so an edited template is
+    compiled afresh. A cache that cannot be read or written is skipped, never an error."""
+
+    def load_bytecode(self, bucket) -> None:
+        try:
+            super().load_bytecode(bucket)
+        except (OSError, EOFError, ValueError):
+            bucket.reset()
+
+    def dump_bytecode(self, bucket) -> None:
+        try:
+            super().dump_bytecode(bucket)
+        except OSError:
+            pass
+
+
+@lru_cache(maxsize=1)
+def _environment() -> Environment:
+    """One template environment per process (it keeps the templates it compiled)."""
+    try:
+        cache = _QuietBytecodeCache()
+    except (OSError, RuntimeError):  # no private temporary folder to be had: compile every time
+        cache = None
     env = Environment(
         loader=PackageLoader("fieldsection", "templates"),
         autoescape=select_autoescape(["html", "j2"]),
         undefined=StrictUndefined,
+        bytecode_cache=cache,
     )
     env.filters["num"] = _number
     env.filters["xy"] = _point
+    return env
+
+
+def _render_html(results: dict, figures: list[dict[str, str]]) -> str:
+    env = _environment()
     planar = results["case"]["model"] == "planar"
     return env.get_template("report.html.j2").render(r=results, figures=figures, fields_file=FIELDS_FILE,
                                                      L="_per_m" if planar else "", PER="/m" if planar else "")
