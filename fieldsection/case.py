@@ -118,7 +118,7 @@ class MeshSettings:
 
 @dataclass(frozen=True)
 class Refinement:
-    """Adaptive refinement: re-mesh where the error indicator is large until the results settle.
+    """Adaptive refinement: refine where the error indicator is large until the results settle.
 
     The loop stops when, between two passes, every capacitance entry changes by less than
     ``capacitance_tolerance`` (relative to the diagonal) and every non-singular peak field by less
