@@ -115,10 +115,11 @@ class _Projector:
         _, glued = np.unique(keys, return_inverse=True)
         self.glued = glued.reshape(keys.shape)  # (local functions, nelements)
         self.size = int(self.glued.max()) + 1
-        # shape function values at the quadrature points (local functions, nelements, nqp), and dx
-        self.phi = np.array([np.asarray(basis.basis[j][0]) for j in range(basis.Nbfun)])
-        self.phi_dx = self.phi * basis.dx[None]
-        local = np.einsum("inq,jnq->nij", self.phi_dx, self.phi)  # element mass matrices
+        # shape function values at the quadrature points (local functions, nqp): a Lagrange function's values
+        # at the reference points are the same in every element (the mapping changes its gradient only)
+        self.phi = np.array([np.asarray(basis.basis[j][0])[0] for j in range(basis.Nbfun)])
+        self.dx = basis.dx
+        local = np.einsum("iq,jq,nq->nij", self.phi, self.phi, basis.dx)  # element mass matrices
         rows = np.broadcast_to(self.glued.T[:, :, None], local.shape)
         cols = np.broadcast_to(self.glued.T[:, None, :], local.shape)
         self._mass = sp.csr_matrix((local.ravel(), (rows.ravel(), cols.ravel())), shape=(self.size, self.size))
@@ -135,7 +136,7 @@ class _Projector:
     def project(self, E_h: np.ndarray) -> np.ndarray:
         """Coefficients (c, glued DOFs) of the recovered field, for fields (c, nelements, nqp) of any count c
         of components."""
-        element_loads = np.einsum("jnq,cnq->cjn", self.phi_dx, E_h)
+        element_loads = np.einsum("cnq,nq,jq->cjn", E_h, self.dx, self.phi, optimize=True)  # as ``glued``
         loads = np.stack([np.bincount(self.glued.ravel(), weights=load.ravel(), minlength=self.size)
                           for load in element_loads], axis=1)
         return conjugate_gradients(self._mass, loads, self._inverse_diagonal).T
@@ -146,7 +147,7 @@ class _Projector:
 
     def indicator(self, coefficients: np.ndarray, E_h: np.ndarray) -> np.ndarray:
         """eta_K^2 per element: the weighted energy of E* - E_h."""
-        E_star = sum(coefficients[:, self.glued[j], None] * self.phi[j] for j in range(len(self.phi)))
+        E_star = np.einsum("cjn,jq->cnq", coefficients[:, self.glued], self.phi)
         eta2 = (((E_star - E_h) ** 2).sum(axis=0) * self.eps_dx).sum(axis=1)
         # meshed conductors carry no field; the mapped open space is not re-meshed by refinement, and in a
         # body of revolution its image has a kink at infinity that no continuous recovery follows
