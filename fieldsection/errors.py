@@ -35,3 +35,8 @@ class SolverError(FieldSectionError):
 
 class ReportError(FieldSectionError):
     """The report could not be written."""
+
+
+class ReportFolderTaken(FieldSectionError):
+    """The report's folder holds another kind of report (a case, a study or the verification suite of the same
+    name): the user's choice of names or folders, so bad input, not a disk fault."""

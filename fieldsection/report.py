@@ -19,7 +19,7 @@ from typing import Callable, Iterator
 
 from jinja2 import Environment, FileSystemBytecodeCache, PackageLoader, StrictUndefined, select_autoescape
 
-from .errors import ReportError
+from .errors import ReportError, ReportFolderTaken
 from .pipeline import SectionResult
 from .probes import csv_name, figure_name, probe_results, sample_probe, write_csv
 from .results import build_results
@@ -190,14 +190,32 @@ def new_staging_folder(parent: Path, name: str) -> Path:
     return staging
 
 
+#: the file that tells each kind of report folder apart: a case, a study and the verification suite write into
+#: the same reports folder, each into a folder of its own name, and one must not replace another's
+REPORT_SIGNATURES = {"results.json": "a case's report", "table.json": "a study's report",
+                     "verification.json": "the verification report"}
+
+
+def _refuse_other_kind(staging: Path, target: Path, what: str) -> None:
+    if not target.is_dir():
+        return
+    mine = {f for f in REPORT_SIGNATURES if (staging / f).is_file()}
+    theirs = {f for f in REPORT_SIGNATURES if (target / f).is_file()}
+    if theirs and theirs != mine:
+        raise ReportFolderTaken(f"{str(target)!r} holds {REPORT_SIGNATURES[sorted(theirs)[0]]}, which {what} would replace; "
+                          "write into another folder (--reports) or give the case or study another name")
+
+
 @contextmanager
 def built_whole(parent: Path, name: str, what: str) -> Iterator[Path]:
     """A staging folder for ``parent/name``, published whole when the block ends without error; on any error
-    it is removed and nothing is published (``what`` names the folder in the message of a disk error)."""
+    it is removed and nothing is published (``what`` names the folder in the message of a disk error). A folder
+    of that name holding another kind of report (``REPORT_SIGNATURES``) is not replaced: an error says so."""
     target = parent / name
     staging = new_staging_folder(parent, name)
     try:
         yield staging
+        _refuse_other_kind(staging, target, what)
         publish_folder(staging, target)
     except OSError as exc:
         shutil.rmtree(staging, ignore_errors=True)

@@ -289,3 +289,21 @@ def test_electrode_touching_the_grounded_boundary(tmp_path, capsys):
     message = run_expecting_error(tmp_path, capsys, case)
     assert "electrode 'top' touches the grounded outer boundary" in message or \
            "electrode 'bottom' touches the grounded outer boundary" in message
+
+
+def test_a_case_named_like_another_kind_of_report_does_not_replace_it(tmp_path, capsys):
+    # `fieldsection verify` writes reports/verification/; a case named "verification" must not overwrite it
+    reports = tmp_path / "reports"
+    suite = reports / "verification"
+    suite.mkdir(parents=True)
+    (suite / "verification.json").write_text("{}")
+    case = write_case(tmp_path).rename(tmp_path / "verification.toml")
+    code = main(["run", str(case), "--reports", str(reports), "--quiet", "--no-figures"])
+    err = capsys.readouterr().err
+    assert code == EXIT_BAD_INPUT, err
+    assert re.search(r"holds the verification report, which the report would replace; write into another folder",
+                     err), err
+    assert sorted(p.name for p in reports.iterdir()) == ["verification"]  # no working folder left behind
+    assert sorted(p.name for p in suite.iterdir()) == ["verification.json"]
+    # into a folder of its own, the same case runs
+    assert main(["run", str(case), "--reports", str(tmp_path / "elsewhere"), "--quiet", "--no-figures"]) == 0
