@@ -24,7 +24,6 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 from scipy.spatial import cKDTree
 
-from .errors import MeshError
 from .splitting import Snap, edge_keys, find_edges, unique_edges, with_mid_edge_nodes
 
 #: an element is split while it is larger than this times the size wanted for it (the geometric middle
@@ -128,8 +127,9 @@ def split_marked(points: np.ndarray, triangles: np.ndarray, marked: np.ndarray,
             new_segments[key] = pairs
             continue
         where, found = find_edges(keys, pairs, n)
-        if not found.all():
-            raise MeshError(f"curve {key!r} has segments that are no triangle side; report this as a bug")
+        if not found.all():  # a curve that bounds no triangle (a stray construction line): left as it is,
+            new_segments[key] = pairs  # as gmsh's splitting leaves it (physical curves are triangle sides)
+            continue
         cut = split[where]
         middle = new_of_edge[where[cut]]
         if shaped is not None and snap is not None and key in shaped:
