@@ -1,0 +1,133 @@
+"""Drawing a report's figures beside the rest of the report: in a forked child process where the platform can fork
+(Linux), else in a second thread.
+
+matplotlib's import alone takes about half a second, and the figures of a model together about as long as the
+superposition check, the VTK file and the HTML: the report stage draws them meanwhile, on another core.
+``start_drawing(first, then)`` runs ``first()`` at once; ``Drawing.finish(*args)`` hands ``args`` over (the
+superposition check and the probe samples, known only later), runs ``then(*args)`` after ``first`` and returns
+both results concatenated (lists of what was drawn). Errors of either are raised by ``finish``; ``stop`` ends the
+drawing early (the report failed). The child inherits the analysis when it is forked (nothing is copied) and
+returns only the list of files; it ignores Ctrl-C (the parent stops it) and dies with its parent.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+import signal
+import sys
+from concurrent.futures import Future, ThreadPoolExecutor
+from threading import Event
+from typing import Any, Callable
+
+from .errors import ReportError
+
+Drawn = list  # what ``first`` and ``then`` return: (file, caption) pairs
+
+
+class Drawing:
+    """Figures being drawn (see the module docstring)."""
+
+    def finish(self, *args: Any) -> Drawn:
+        raise NotImplementedError
+
+    def stop(self) -> None:
+        raise NotImplementedError
+
+
+def start_drawing(first: Callable[[], Drawn], then: Callable[..., Drawn]) -> Drawing:
+    """Start ``first()`` in a forked child (Linux) or a thread; ``finish(*args)`` adds ``then(*args)``."""
+    if sys.platform == "linux" and not multiprocessing.current_process().daemon:
+        return _Child(first, then)
+    return _Thread(first, then)  # (a daemonic process may not have children)
+
+
+class _Thread(Drawing):
+    def __init__(self, first, then):
+        self._args: list = []
+        self._given, self._stopped = Event(), False
+        self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="fieldsection-figures")
+        self._future: Future = self._pool.submit(self._run, first, then)
+
+    def _run(self, first, then) -> Drawn:
+        drawn = first()
+        self._given.wait()
+        return drawn if self._stopped else drawn + then(*self._args)
+
+    def finish(self, *args) -> Drawn:
+        self._args = list(args)
+        self._given.set()
+        try:
+            return self._future.result()
+        finally:
+            self._pool.shutdown(wait=True)
+
+    def stop(self) -> None:
+        self._stopped = True
+        self._given.set()
+        self._pool.shutdown(wait=True)  # (a figure half drawn is finished: the staging folder goes after this)
+
+
+class _Child(Drawing):
+    def __init__(self, first, then):
+        context = multiprocessing.get_context("fork")
+        self._parent, child_end = context.Pipe()
+        self._child = context.Process(target=_child, args=(child_end, first, then), daemon=True,
+                                      name="fieldsection-figures")
+        self._child.start()
+        child_end.close()
+
+    def finish(self, *args) -> Drawn:
+        try:
+            try:
+                self._parent.send(args)
+            except OSError:  # the child has already ended (an error of ``first``, sent before): read it below
+                pass
+            status, payload = self._parent.recv()
+        except EOFError:
+            self._child.join()
+            code = self._child.exitcode
+            cause = f"killed by signal {-code}" if code is not None and code < 0 else f"exit code {code}"
+            raise ReportError(f"the process drawing the figures stopped unexpectedly ({cause}); run again, or "
+                              "with --no-figures") from None
+        finally:
+            self.stop()
+        if status == "error":
+            raise payload
+        return payload
+
+    def stop(self) -> None:
+        if self._child.is_alive():
+            self._child.kill()
+        self._child.join()
+        self._parent.close()
+
+
+def _child(connection, first, then) -> None:
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle: it stops this child
+    try:  # and die with the parent, even by SIGKILL
+        import ctypes
+
+        ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # 1: PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass
+    try:
+        drawn = first()
+        args = connection.recv()
+        connection.send(("ok", drawn + then(*args)))
+    except EOFError:  # the parent is gone or gave up
+        pass
+    except BaseException as exc:
+        connection.send(("error", exc if _picklable(exc) else ReportError(f"drawing the figures failed: "
+                                                                          f"{type(exc).__name__}: {exc}")))
+    finally:
+        connection.close()
+
+
+def _picklable(exc: BaseException) -> bool:
+    import pickle
+
+    try:
+        pickle.loads(pickle.dumps(exc))
+    except Exception:
+        return False
+    return True
