@@ -184,7 +184,9 @@ class PixelGrid:
         points = ends[owner, 0] + t[:, None] * (ends[owner, 1] - ends[owner, 0])
         i, j = np.floor(points[:, 0]).astype(np.int64), np.floor(points[:, 1]).astype(np.int64)
         keep = (i >= 0) & (i < self.nx) & (j >= 0) & (j < self.ny)
-        return np.unique(j[keep] * self.nx + i[keep])
+        passed = np.zeros(self.nx * self.ny, dtype=bool)
+        passed[j[keep] * self.nx + i[keep]] = True
+        return np.flatnonzero(passed)
 
 
 _GRIDS: list[PixelGrid] = []  # of the last model drawn: the maps of a report share them

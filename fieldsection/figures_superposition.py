@@ -45,6 +45,8 @@ def plot_superposition(problem: AssembledProblem, charges: ChargeResult, check: 
     # fixed margins (room for the right panel's second axis): a layout pass costs more than the drawing
     fig.subplots_adjust(left=0.08, right=0.925, bottom=0.13, top=0.88, wspace=0.32)
     left, right = fig.subplots(1, 2)
+    for ax in (left, right):  # fewer ticks: each is a handful of artists and a text to lay out
+        ax.locator_params(nbins=6)
 
     faces = [(f"free, {c.name}", c.sides.facets, c.sigma_f, "o") for c in charges.conductors if c.sides.facets.size]
     faces += [(f"bound, {i.region_a} | {i.region_b}", i.facets, i.sigma_b, ".") for i in charges.interfaces

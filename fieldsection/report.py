@@ -44,7 +44,8 @@ def _point(value) -> str:
         return "–"
 
 
-def _render_html(results: dict, figures: list[dict[str, str]]) -> str:
+def _template():
+    """The report's page template, compiled (a quarter of a second: done while the figures are drawn)."""
     env = Environment(
         loader=PackageLoader("fieldsection", "templates"),
         autoescape=select_autoescape(["html", "j2"]),
@@ -52,9 +53,13 @@ def _render_html(results: dict, figures: list[dict[str, str]]) -> str:
     )
     env.filters["num"] = _number
     env.filters["xy"] = _point
+    return env.get_template("report.html.j2")
+
+
+def _render_html(results: dict, figures: list[dict[str, str]], template=None) -> str:
     planar = results["case"]["model"] == "planar"
-    return env.get_template("report.html.j2").render(r=results, figures=figures, fields_file=FIELDS_FILE,
-                                                     L="_per_m" if planar else "", PER="/m" if planar else "")
+    return (template or _template()).render(r=results, figures=figures, fields_file=FIELDS_FILE,
+                                            L="_per_m" if planar else "", PER="/m" if planar else "")
 
 
 def _data_uri(path: Path) -> str:
@@ -105,6 +110,7 @@ def write_report(
                 from .analysis_report import ANALYSIS_FIELDS_FILE, write_analysis_vtk
 
                 write_analysis_vtk(result, staging / ANALYSIS_FIELDS_FILE)
+            template = _template()
             drawn = drawing.finish(superposition, probes) if drawing is not None else []
         finally:
             if drawing is not None:
@@ -117,7 +123,7 @@ def write_report(
             figure_list.append({"file": name, "caption": caption, "data": _data_uri(staging / name)})
         (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default, allow_nan=False),
                                              encoding="utf-8")
-        (staging / "report.html").write_text(_render_html(results, figure_list), encoding="utf-8")
+        (staging / "report.html").write_text(_render_html(results, figure_list, template), encoding="utf-8")
     return target
 
 
