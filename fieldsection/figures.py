@@ -10,8 +10,8 @@ mesh in numpy (``figures_grid``): the hottest pixel shows the hottest element wh
 size, and the potential is interpolated linearly from the corner vertices. Curved (second-order)
 meshes are drawn by their corner vertices, i.e. with straight chords. Outlines, electrodes,
 equipotentials and hotspot markers are drawn as lines and markers at their true positions, in
-fixed margins (no layout engine). Every function writes a PNG at ``DPI``, releases the figure and
-returns the path written.
+fixed margins (no layout engine). Every function writes a PNG at ``DPI`` and returns the path written;
+the figure, never registered with pyplot, goes with its last reference.
 """
 
 from __future__ import annotations
@@ -37,7 +37,8 @@ from matplotlib.tri import Triangulation
 from .charges import ChargeResult
 from .errors import ReportError
 from .fields import ElementFields
-from .figures_grid import BAR_GAP, BAR_LABELS, BAR_WIDTH, TITLE_AT, VIEW_MARGIN, MapLayout, forget_grids, map_layout, pixel_grid
+from .figures_grid import (BAR_GAP, BAR_LABELS, BAR_WIDTH, TITLE_AT, VIEW_MARGIN, MapLayout, forget_grids, map_layout,
+                           pixel_grid)
 from .hotspots import HotspotResult
 from .mesh import EXTERIOR
 from .problem import AssembledProblem
@@ -157,7 +158,8 @@ def _map_figure(problem: AssembledProblem, title: str, window: tuple[float, ...]
     x0, x1, y0, y1 = layout.view
     ax.set_xlim(x0, x1)
     ax.set_ylim(y0, y1)
-    ax.xaxis.set_major_locator(MaxNLocator(TICKS, steps=_TICK_STEPS))  # each tick is a handful of artists to make and draw
+    # few ticks: each is a handful of artists to make and a label to lay out and draw
+    ax.xaxis.set_major_locator(MaxNLocator(TICKS, steps=_TICK_STEPS))
     ax.yaxis.set_major_locator(MaxNLocator(TICKS, steps=_TICK_STEPS))
     ax.set_xlabel("x (mm)")
     ax.set_ylabel("y (mm)")
@@ -166,8 +168,10 @@ def _map_figure(problem: AssembledProblem, title: str, window: tuple[float, ...]
 
 
 def _show(ax: Axes, layout: MapLayout, rgba: np.ndarray) -> None:
-    """An (ny, nx, 4) image on the map's axes, one image pixel per PNG pixel."""
-    ax.imshow(rgba, extent=layout.view, origin="lower", interpolation="nearest", aspect="auto", zorder=1)
+    """An (ny, nx, 4) image exactly under the map's axes, one image pixel per PNG pixel: placed on the figure
+    (``figimage``, never resampled) behind the axes, whose own background is left out."""
+    ax.patch.set_visible(False)
+    ax.figure.figimage(rgba, xo=layout.left, yo=layout.bottom, origin="lower", zorder=-1)
 
 
 def _rgba(values: np.ndarray, cmap, norm: Normalize) -> np.ndarray:
@@ -185,7 +189,8 @@ def _colour_bar(fig: Figure, layout: MapLayout, cmap, norm: Normalize, label: st
     return bar
 
 
-def _dielectric_map(problem: AssembledProblem, layout: MapLayout, values: np.ndarray, cmap, norm: Normalize) -> np.ndarray:
+def _dielectric_map(problem: AssembledProblem, layout: MapLayout, values: np.ndarray, cmap,
+                    norm: Normalize) -> np.ndarray:
     """Per element ``values`` on the dielectric through ``cmap``, meshed conductors flat grey: RGBA bytes."""
     grid = pixel_grid(problem, layout)
     dielectric = problem.dielectric
@@ -289,7 +294,8 @@ def plot_regions(problem: AssembledProblem, path: str | os.PathLike) -> Path:
                     fontsize=8, color=colour, zorder=5,
                     bbox=dict(boxstyle="round,pad=0.2", facecolor="white", edgecolor=colour, alpha=0.85))
     fig.legend(handles=handles, loc="upper left", fontsize=8, frameon=False, borderaxespad=0.0,
-               bbox_to_anchor=((layout.left + layout.nx + 16) / layout.width, (layout.bottom + layout.ny) / layout.height))
+               bbox_to_anchor=((layout.left + layout.nx + 16) / layout.width,
+                               (layout.bottom + layout.ny) / layout.height))
     return _save(fig, path)
 
 

@@ -12,6 +12,7 @@ returns only the list of files; it ignores Ctrl-C (the parent stops it) and dies
 
 from __future__ import annotations
 
+import gc
 import multiprocessing
 import signal
 import sys
@@ -73,7 +74,11 @@ class _Child(Drawing):
         self._parent, child_end = context.Pipe()
         self._child = context.Process(target=_child, args=(child_end, first, then), daemon=True,
                                       name="fieldsection-figures")
-        self._child.start()
+        gc.freeze()  # the child's collections leave the inherited objects alone: their pages stay shared
+        try:
+            self._child.start()
+        finally:
+            gc.unfreeze()
         child_end.close()
 
     def finish(self, *args) -> Drawn:
