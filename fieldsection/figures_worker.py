@@ -3,10 +3,10 @@
 
 matplotlib's import alone takes about half a second, and the figures of a model together about as long as the
 superposition check, the VTK file and the HTML: the report stage draws them meanwhile, on another core.
-``start_drawing(first, then)`` runs ``first()`` at once; ``Drawing.finish(*args)`` hands ``args`` over (the
-superposition check and the probe samples, known only later), runs ``then(*args)`` after ``first`` and returns
-both results concatenated (lists of what was drawn). Errors of either are raised by ``finish``; ``stop`` ends the
-drawing early (the report failed). The child inherits the analysis when it is forked (nothing is copied) and
+``start_drawing(first, then)`` runs ``first()`` at once; ``Drawing.give(*args)`` hands ``args`` over (the
+superposition check and the probe samples, known only later) for ``then(*args)``, run after ``first``;
+``Drawing.finish()`` waits and returns both results concatenated (lists of what was drawn). Errors of either are
+raised by ``finish``; ``stop`` ends the drawing early (the report failed). The child inherits the analysis when it is forked (nothing is copied) and
 returns only the list of files; it ignores Ctrl-C (the parent stops it) and dies with its parent.
 """
 
@@ -28,7 +28,10 @@ Drawn = list  # what ``first`` and ``then`` return: (file, caption) pairs
 class Drawing:
     """Figures being drawn (see the module docstring)."""
 
-    def finish(self, *args: Any) -> Drawn:
+    def give(self, *args: Any) -> None:
+        raise NotImplementedError
+
+    def finish(self) -> Drawn:
         raise NotImplementedError
 
     def stop(self) -> None:
@@ -36,7 +39,7 @@ class Drawing:
 
 
 def start_drawing(first: Callable[[], Drawn], then: Callable[..., Drawn]) -> Drawing:
-    """Start ``first()`` in a forked child (Linux) or a thread; ``finish(*args)`` adds ``then(*args)``."""
+    """Start ``first()`` in a forked child (Linux) or a thread; ``give(*args)`` adds ``then(*args)``."""
     if sys.platform == "linux" and not multiprocessing.current_process().daemon:
         return _Child(first, then)
     return _Thread(first, then)  # (a daemonic process may not have children)
@@ -54,9 +57,11 @@ class _Thread(Drawing):
         self._given.wait()
         return drawn if self._stopped else drawn + then(*self._args)
 
-    def finish(self, *args) -> Drawn:
+    def give(self, *args) -> None:
         self._args = list(args)
         self._given.set()
+
+    def finish(self) -> Drawn:
         try:
             return self._future.result()
         finally:
@@ -81,12 +86,14 @@ class _Child(Drawing):
             gc.unfreeze()
         child_end.close()
 
-    def finish(self, *args) -> Drawn:
+    def give(self, *args) -> None:
         try:
-            try:
-                self._parent.send(args)
-            except OSError:  # the child has already ended (an error of ``first``, sent before): read it below
-                pass
+            self._parent.send(args)
+        except OSError:  # the child has already ended (an error of ``first``, sent before): ``finish`` reads it
+            pass
+
+    def finish(self) -> Drawn:
+        try:
             status, payload = self._parent.recv()
         except EOFError:
             self._child.join()

@@ -90,15 +90,17 @@ def write_report(
     target = reports_dir / result.case.name
     with built_whole(reports_dir, result.case.name, "the report") as staging:
         # the figures are drawn meanwhile, by a child process (``figures_worker``): matplotlib's import and the
-        # maps take about as long as the superposition check and the VTK file
+        # maps take about as long as the superposition check, the VTK file and the page's template
         drawing = (start_drawing(partial(_draw_model_figures, result, staging),
                                  partial(_draw_check_figures, result, staging)) if with_figures else None)
         try:
             if on_step:
                 on_step("results")
             superposition = check_superposition(result.solution)
-            results = build_results(result, superposition)
             probes = [sample_probe(result.solution, result.fields, line) for line in result.case.probes]
+            if drawing is not None:
+                drawing.give(superposition, probes)  # their figures are drawn while the rest is written
+            results = build_results(result, superposition)
             results["probe_lines"] = [{**probe_results(p), "figure_file": figure_name(p.line) if with_figures else None}
                                       for p in probes]
             for samples in probes:
@@ -111,7 +113,7 @@ def write_report(
 
                 write_analysis_vtk(result, staging / ANALYSIS_FIELDS_FILE)
             template = _template()
-            drawn = drawing.finish(superposition, probes) if drawing is not None else []
+            drawn = drawing.finish() if drawing is not None else []
         finally:
             if drawing is not None:
                 drawing.stop()  # (after an error: the staging folder is removed next)

@@ -106,11 +106,13 @@ def _then(word):
 def test_drawing_beside_the_report_returns_its_files_or_raises_its_error(platform, monkeypatch):
     monkeypatch.setattr("sys.platform", platform)  # "other": in a thread, as where the platform cannot fork
     drawing = start_drawing(_first, _then)
-    drawn = drawing.finish("then")
+    drawing.give("then")
+    drawn = drawing.finish()
     assert [name for name, _ in drawn] == ["a.png", "b.png"]
     assert (drawn[0][1] != f"drawn by {os.getpid()}") == (platform == "linux")  # a child process on Linux
     failing = start_drawing(_first, _then)
+    failing.give("fail")
     with pytest.raises(ReportError, match="no room"):
-        failing.finish("fail")
+        failing.finish()
     stopped = start_drawing(_first, _then)
     stopped.stop()  # (the report failed first): nothing is left running
