@@ -22,6 +22,7 @@ from pathlib import Path
 
 import numpy as np
 from matplotlib import colormaps
+from matplotlib.artist import Artist
 from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg
 from matplotlib.cm import ScalarMappable
@@ -167,11 +168,25 @@ def _map_figure(problem: AssembledProblem, title: str, window: tuple[float, ...]
     return fig, ax, layout
 
 
+class _Pixels(Artist):
+    """An RGBA image (row 0 at the bottom) put on the canvas at a pixel offset as it is: never resampled."""
+
+    def __init__(self, rgba: np.ndarray, left: int, bottom: int):
+        super().__init__()
+        self._rgba = np.ascontiguousarray(rgba)
+        self._left, self._bottom = left, bottom
+
+    def draw(self, renderer) -> None:
+        gc = renderer.new_gc()
+        renderer.draw_image(gc, self._left, self._bottom, self._rgba)
+        gc.restore()
+
+
 def _show(ax: Axes, layout: MapLayout, rgba: np.ndarray) -> None:
-    """An (ny, nx, 4) image exactly under the map's axes, one image pixel per PNG pixel: placed on the figure
-    (``figimage``, never resampled) behind the axes, whose own background is left out."""
+    """An (ny, nx, 4) image exactly under the map's axes, one image pixel per PNG pixel, behind the axes (whose
+    own background is left out)."""
     ax.patch.set_visible(False)
-    ax.figure.figimage(rgba, xo=layout.left, yo=layout.bottom, origin="lower", zorder=-1)
+    ax.figure.add_artist(_Pixels(rgba, layout.left, layout.bottom)).set_zorder(-1)
 
 
 def _rgba(values: np.ndarray, cmap, norm: Normalize) -> np.ndarray:

@@ -122,6 +122,8 @@ class PixelGrid:
         i = i_lo.repeat(span) + np.arange(self._element.size) - np.repeat(np.cumsum(span) - span, span)
         self._i, self._j = i, j.repeat(span)
         self._pixel = self._j * nx + i
+        # a pixel centre on a side shared by two elements is held by both: the larger value is taken there
+        self._shared = np.bincount(self._pixel, minlength=nx * ny)[self._pixel] > 1
         held = np.zeros(mesh.nelements, dtype=bool)
         held[self._element] = True
         tiny = elements[~held[elements]]  # elements holding no pixel centre: their centroid's pixel
@@ -133,41 +135,34 @@ class PixelGrid:
         self._tiny, self._tiny_pixel = tiny, cj * nx + ci
         self._t = mesh.t
         self._corners = corners
-        self._weight_cache: np.ndarray | None = None
-
-    @property
-    def _weights(self) -> np.ndarray:
-        """Barycentric coordinates (n, 3) of each held pixel centre in its element (made on first use)."""
-        if self._weight_cache is None:
-            x0, _, y0, _ = self.view
-            c = self._corners[:, :, self._element]
-            px, py = x0 + (self._i + 0.5) * self.pixel, y0 + (self._j + 0.5) * self.pixel
-            ax, ay = c[0, 0], c[1, 0]
-            bx, by, cx, cy = c[0, 1] - ax, c[1, 1] - ay, c[0, 2] - ax, c[1, 2] - ay
-            det = bx * cy - cx * by
-            dx, dy = px - ax, py - ay
-            l1 = np.clip((dx * cy - cx * dy) / det, 0.0, 1.0)
-            l2 = np.clip((bx * dy - dx * by) / det, 0.0, 1.0 - l1)
-            self._weight_cache = np.column_stack([1 - l1 - l2, l1, l2])
-        return self._weight_cache
 
     def image(self, values: np.ndarray, how: str = "max", only: np.ndarray | None = None) -> np.ndarray:
         """Per element ``values`` ("max"), or per vertex values interpolated linearly ("linear"), over the
         elements where ``only`` (per element) is true (all shown ones by default): an (ny, nx) array, row 0 at
         the bottom, NaN where no such element is."""
         flat = np.full(self.nx * self.ny, np.nan)
-        element, pixel, tiny, tiny_pixel = self._element, self._pixel, self._tiny, self._tiny_pixel
+        element, pixel, shared, tiny, tiny_pixel = self._element, self._pixel, self._shared, self._tiny, self._tiny_pixel
         keep = None if only is None else only[element]
         if only is not None:
-            element, pixel = element[keep], pixel[keep]
+            element, pixel, shared = element[keep], pixel[keep], shared[keep]
             tiny, tiny_pixel = tiny[only[tiny]], tiny_pixel[only[tiny]]
-        if how == "linear":
-            weights = self._weights if keep is None else self._weights[keep]
-            corner = values[self._t[:, element]]  # (3, n)
-            flat[pixel] = corner[0] * weights[:, 0] + corner[1] * weights[:, 1] + corner[2] * weights[:, 2]
-            np.fmax.at(flat, tiny_pixel, values[self._t[:, tiny]].max(axis=0))  # an element too small for a pixel
+        if how == "linear":  # each element's plane through its corner values, at the pixel centres it holds
+            x, y = self._corners
+            v = values[self._t]  # (3, nelements)
+            dx1, dy1, dv1 = x[1] - x[0], y[1] - y[0], v[1] - v[0]
+            dx2, dy2, dv2 = x[2] - x[0], y[2] - y[0], v[2] - v[0]
+            det = dx1 * dy2 - dx2 * dy1
+            with np.errstate(divide="ignore", invalid="ignore"):  # (degenerate elements hold no pixel centre)
+                slope_x, slope_y = (dv1 * dy2 - dv2 * dy1) / det, (dx1 * dv2 - dx2 * dv1) / det
+            x0, _, y0, _ = self.view
+            i, j = (self._i, self._j) if keep is None else (self._i[keep], self._j[keep])
+            px, py = x0 + (i + 0.5) * self.pixel, y0 + (j + 0.5) * self.pixel
+            flat[pixel] = v[0, element] + slope_x[element] * (px - x[0, element]) + slope_y[element] * (py - y[0, element])
+            np.fmax.at(flat, tiny_pixel, v[:, tiny].max(axis=0))  # an element too small for a pixel: its top
         else:  # the largest value wins in each pixel (fmax: NaN, no value yet, loses to any number)
-            np.fmax.at(flat, pixel, values[element])
+            v = values[element]
+            flat[pixel[~shared]] = v[~shared]
+            np.fmax.at(flat, pixel[shared], v[shared])
             np.fmax.at(flat, tiny_pixel, values[tiny])
         return flat.reshape(self.ny, self.nx)
 

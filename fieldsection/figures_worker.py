@@ -6,8 +6,9 @@ superposition check, the VTK file and the HTML: the report stage draws them mean
 ``start_drawing(first, then)`` runs ``first()`` at once; ``Drawing.give(*args)`` hands ``args`` over (the
 superposition check and the probe samples, known only later) for ``then(*args)``, run after ``first``;
 ``Drawing.finish()`` waits and returns both results concatenated (lists of what was drawn). Errors of either are
-raised by ``finish``; ``stop`` ends the drawing early (the report failed). The child inherits the analysis when it is forked (nothing is copied) and
-returns only the list of files; it ignores Ctrl-C (the parent stops it) and dies with its parent.
+raised by ``finish``; ``stop`` ends the drawing early (the report failed). The child inherits the analysis when it
+is forked (nothing is copied) and returns only the list of files; it ignores Ctrl-C (the parent stops it) and dies
+with its parent.
 """
 
 from __future__ import annotations
@@ -16,8 +17,8 @@ import gc
 import multiprocessing
 import signal
 import sys
+import threading
 from concurrent.futures import Future, ThreadPoolExecutor
-from threading import Event
 from typing import Any, Callable
 
 from .errors import ReportError
@@ -48,7 +49,7 @@ def start_drawing(first: Callable[[], Drawn], then: Callable[..., Drawn]) -> Dra
 class _Thread(Drawing):
     def __init__(self, first, then):
         self._args: list = []
-        self._given, self._stopped = Event(), False
+        self._given, self._stopped = threading.Event(), False
         self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="fieldsection-figures")
         self._future: Future = self._pool.submit(self._run, first, then)
 
@@ -102,6 +103,7 @@ class _Child(Drawing):
             raise ReportError(f"the process drawing the figures stopped unexpectedly ({cause}); run again, or "
                               "with --no-figures") from None
         finally:
+            self._child.join(timeout=2.0)  # (it has sent all it had; it is ending)
             self.stop()
         if status == "error":
             raise payload
@@ -122,15 +124,28 @@ def _child(connection, first, then) -> None:
         ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # 1: PR_SET_PDEATHSIG
     except (OSError, AttributeError):
         pass
+    given: list = []
+
+    def receive() -> None:  # at once, so that the parent's ``give`` never waits for a full pipe to drain
+        try:
+            given.append(connection.recv())
+        except (EOFError, OSError):  # the parent is gone or gave up
+            pass
+
+    reader = threading.Thread(target=receive, daemon=True)
+    reader.start()
     try:
         drawn = first()
-        args = connection.recv()
-        connection.send(("ok", drawn + then(*args)))
-    except EOFError:  # the parent is gone or gave up
-        pass
+        reader.join()
+        answer = ("ok", drawn + then(*given[0])) if given else None
     except BaseException as exc:
-        connection.send(("error", exc if _picklable(exc) else ReportError(f"drawing the figures failed: "
-                                                                          f"{type(exc).__name__}: {exc}")))
+        answer = ("error", exc if _picklable(exc) else ReportError(f"drawing the figures failed: "
+                                                                   f"{type(exc).__name__}: {exc}"))
+    try:
+        if answer is not None:
+            connection.send(answer)
+    except OSError:  # the parent is gone or gave up
+        pass
     finally:
         connection.close()
 

@@ -96,6 +96,10 @@ def _first():
     return [("a.png", f"drawn by {os.getpid()}")]
 
 
+def _failing_first():
+    raise ReportError("cannot write the figure 'a.png': no room; check that its folder exists and is writable")
+
+
 def _then(word):
     if word == "fail":
         raise ReportError("cannot write the figure 'b.png': no room; check that its folder exists and is writable")
@@ -114,5 +118,34 @@ def test_drawing_beside_the_report_returns_its_files_or_raises_its_error(platfor
     failing.give("fail")
     with pytest.raises(ReportError, match="no room"):
         failing.finish()
+    failing_first = start_drawing(_failing_first, _then)
+    failing_first.give("then")
+    with pytest.raises(ReportError, match="'a.png': no room"):
+        failing_first.finish()
     stopped = start_drawing(_first, _then)
     stopped.stop()  # (the report failed first): nothing is left running
+
+
+def test_a_map_image_lands_on_its_axes_right_way_up(tmp_path):
+    """Row 0 of a map is its bottom row in the PNG, and the image fills the axes box exactly."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from matplotlib.image import imread
+
+    layout = map_layout((0.0, 1.0, 0.0, 1.0), 1, 100)
+    fig = Figure(figsize=(layout.width / figures.DPI, layout.height / figures.DPI), dpi=figures.DPI)
+    FigureCanvasAgg(fig)
+    ax = fig.add_axes(layout.axes_rect)
+    ax.set_axis_off()
+    rgba = np.zeros((layout.ny, layout.nx, 4), dtype=np.uint8)
+    rgba[..., 3] = 255
+    rgba[: layout.ny // 2, :, 0] = 255  # bottom half red
+    rgba[layout.ny // 2:, :, 2] = 255  # top half blue
+    figures._show(ax, layout, rgba)
+    pixels = np.round(imread(figures._save(fig, tmp_path / "map.png"))[..., :3] * 255).astype(int)
+    assert pixels.shape[:2] == (layout.height, layout.width)
+    top = layout.height - layout.bottom - layout.ny  # PNG rows count from the top
+    assert (pixels[top + layout.ny - 1, layout.left] == [255, 0, 0]).all()  # bottom-left pixel of the map
+    assert (pixels[top, layout.left + layout.nx - 1] == [0, 0, 255]).all()  # top-right pixel
+    assert (pixels[top - 1, layout.left] == [255, 255, 255]).all()  # just above: the figure's white
+    assert (pixels[top + layout.ny, layout.left] == [255, 255, 255]).all()  # just below
