@@ -8,7 +8,8 @@ superposition check and the probe samples, known only later) for ``then(*args)``
 ``Drawing.finish()`` waits and returns both results concatenated (lists of what was drawn). Errors of either are
 raised by ``finish``; ``stop`` ends the drawing early (the report failed). The child inherits the analysis when it
 is forked (nothing is copied) and returns only the list of files; it ignores Ctrl-C (the parent stops it) and dies
-with its parent.
+with its parent. Arguments of ``give`` that cannot be pickled stay here: ``then`` runs in this process after the
+child's ``first``.
 """
 
 from __future__ import annotations
@@ -77,6 +78,7 @@ class _Thread(Drawing):
 class _Child(Drawing):
     def __init__(self, first, then):
         context = multiprocessing.get_context("fork")
+        self._then, self._here = then, None
         self._parent, child_end = context.Pipe()
         self._child = context.Process(target=_child, args=(child_end, first, then), daemon=True,
                                       name="fieldsection-figures")
@@ -92,6 +94,12 @@ class _Child(Drawing):
             self._parent.send(args)
         except OSError:  # the child has already ended (an error of ``first``, sent before): ``finish`` reads it
             pass
+        except Exception:  # ``args`` cannot be pickled: ``then`` runs here, after the child's ``first``
+            self._here = args
+            try:
+                self._parent.send(None)
+            except OSError:
+                pass
 
     def finish(self) -> Drawn:
         try:
@@ -107,7 +115,7 @@ class _Child(Drawing):
             self.stop()
         if status == "error":
             raise payload
-        return payload
+        return payload if self._here is None else payload + self._then(*self._here)
 
     def stop(self) -> None:
         if self._child.is_alive():
@@ -137,7 +145,7 @@ def _child(connection, first, then) -> None:
     try:
         drawn = first()
         reader.join()
-        answer = ("ok", drawn + then(*given[0])) if given else None
+        answer = None if not given else ("ok", drawn if given[0] is None else drawn + then(*given[0]))
     except BaseException as exc:
         answer = ("error", exc if _picklable(exc) else ReportError(f"drawing the figures failed: "
                                                                    f"{type(exc).__name__}: {exc}"))

@@ -122,6 +122,9 @@ def test_drawing_beside_the_report_returns_its_files_or_raises_its_error(platfor
     failing_first.give("then")
     with pytest.raises(ReportError, match="'a.png': no room"):
         failing_first.finish()
+    unpicklable = start_drawing(_first, lambda word: [("c.png", word())])
+    unpicklable.give(lambda: "made here")  # (a lambda cannot go to a child process: ``then`` runs in this one)
+    assert unpicklable.finish()[-1] == ("c.png", "made here")
     stopped = start_drawing(_first, _then)
     stopped.stop()  # (the report failed first): nothing is left running
 
