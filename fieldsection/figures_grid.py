@@ -141,7 +141,8 @@ class PixelGrid:
         elements where ``only`` (per element) is true (all shown ones by default): an (ny, nx) array, row 0 at
         the bottom, NaN where no such element is."""
         flat = np.full(self.nx * self.ny, np.nan)
-        element, pixel, shared, tiny, tiny_pixel = self._element, self._pixel, self._shared, self._tiny, self._tiny_pixel
+        element, pixel, shared = self._element, self._pixel, self._shared
+        tiny, tiny_pixel = self._tiny, self._tiny_pixel
         keep = None if only is None else only[element]
         if only is not None:
             element, pixel, shared = element[keep], pixel[keep], shared[keep]
@@ -157,7 +158,8 @@ class PixelGrid:
             x0, _, y0, _ = self.view
             i, j = (self._i, self._j) if keep is None else (self._i[keep], self._j[keep])
             px, py = x0 + (i + 0.5) * self.pixel, y0 + (j + 0.5) * self.pixel
-            flat[pixel] = v[0, element] + slope_x[element] * (px - x[0, element]) + slope_y[element] * (py - y[0, element])
+            flat[pixel] = (v[0, element] + slope_x[element] * (px - x[0, element])
+                           + slope_y[element] * (py - y[0, element]))
             np.fmax.at(flat, tiny_pixel, v[:, tiny].max(axis=0))  # an element too small for a pixel: its top
         else:  # the largest value wins in each pixel (fmax: NaN, no value yet, loses to any number)
             v = values[element]
