@@ -15,10 +15,12 @@ child's ``first``.
 from __future__ import annotations
 
 import gc
+import importlib
 import multiprocessing
 import signal
 import sys
 import threading
+import warnings
 from concurrent.futures import Future, ThreadPoolExecutor
 from typing import Any, Callable
 
@@ -132,6 +134,7 @@ def _child(connection, first, then) -> None:
         ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # 1: PR_SET_PDEATHSIG
     except (OSError, AttributeError):
         pass
+    _without_3d_toolkit()
     given: list = []
 
     def receive() -> None:  # at once, so that the parent's ``give`` never waits for a full pipe to drain
@@ -156,6 +159,17 @@ def _child(connection, first, then) -> None:
         pass
     finally:
         connection.close()
+
+
+def _without_3d_toolkit() -> None:
+    """Keep matplotlib from importing its 3D toolkit (a tenth of a second; it only registers a projection that the
+    figures never use): in the drawing process alone, which ends with the report."""
+    if "matplotlib.projections" in sys.modules:
+        return
+    sys.modules.setdefault("mpl_toolkits.mplot3d", None)  # (None: "not importable", as Python's import system reads it)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # matplotlib warns that the 3D projection is not available
+        importlib.import_module("matplotlib.projections")
 
 
 def _picklable(exc: BaseException) -> bool:

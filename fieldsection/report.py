@@ -113,14 +113,14 @@ def write_report(
 
                 write_analysis_vtk(result, staging / ANALYSIS_FIELDS_FILE)
             template = _template()
+            if drawing is not None and on_step:
+                on_step("figures")  # (what is left of drawing them: the rest went on beside the steps above)
             drawn = drawing.finish() if drawing is not None else []
         finally:
             if drawing is not None:
                 drawing.stop()  # (after an error: the staging folder is removed next)
         figure_list: list[dict[str, str]] = []
         for name, caption in drawn:
-            if on_step:
-                on_step(f"figure {name}")
             # embedded, so that report.html alone shows every figure; the PNG files stay beside it
             figure_list.append({"file": name, "caption": caption, "data": _data_uri(staging / name)})
         (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default, allow_nan=False),
