@@ -219,7 +219,7 @@ def analysis_figures(result) -> list[tuple[str, str, Callable[[Path], Path]]]:
 def plot_element_values(problem, values: np.ndarray, path: str | os.PathLike, label: str, title: str,
                         logarithmic: bool = False) -> Path:
     """One value per dielectric element, conductors grey; a logarithmic scale for values spanning decades."""
-    from matplotlib.colors import ListedColormap, LogNorm, Normalize
+    from matplotlib.colors import LogNorm, Normalize
 
     from . import figures as fig_module
 
@@ -231,25 +231,8 @@ def plot_element_values(problem, values: np.ndarray, path: str | os.PathLike, la
         values = np.maximum(values, norm.vmin)
     else:
         norm = Normalize(0.0, float(shown.max()) if shown.size and shown.max() > 0 else 1.0)
-    fig, ax = fig_module._new_figure(problem)
-    grey = ListedColormap([fig_module._CONDUCTOR_FILL])
-    nelements = problem.section.mesh.nelements
-    if fig_module._big(problem):
-        binned = fig_module._binned(problem)
-        shading = binned.draw(ax, values, only=dielectric, cmap="YlOrRd", norm=norm)
-        if (~problem.dielectric).any():
-            binned.draw(ax, np.zeros(nelements), only=~problem.dielectric, cmap=grey)
-    else:
-        shading = ax.tripcolor(fig_module._triangulation(problem, mask=~dielectric), facecolors=values, cmap="YlOrRd",
-                               norm=norm)
-        if (~problem.dielectric).any():
-            ax.tripcolor(fig_module._triangulation(problem, mask=problem.dielectric), facecolors=np.zeros(nelements),
-                         cmap=grey)
-    fig_module._draw_outline(ax, problem, width=0.5)
-    fig.colorbar(shading, ax=ax, shrink=0.85).set_label(label)
     top = float(shown.max()) if shown.size else 0.0
-    ax.set_title(f"{title}, max {top:.3g}", fontsize=10)
-    return fig_module._save(fig, path)
+    return fig_module.plot_element_map(problem, values, norm, path, label, f"{title}, max {top:.3g}")
 
 
 def summary_lines(result) -> list[str]:

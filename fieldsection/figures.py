@@ -1,33 +1,35 @@
 """Figures: PNG plots of the regions, the potential, |E| with hotspots, and bound surface charge.
 
-Drawn with matplotlib's object API (``matplotlib.figure.Figure`` on an Agg canvas), so no pyplot
-state is touched and nothing needs a display. Quantities are SI inside; the plots show
-engineers' units, always labelled: lengths in mm, potential in V or kV, |E| in kV/mm and surface
-charge density in uC/m^2.
+Drawn with matplotlib's object API (``matplotlib.figure.Figure`` on an Agg canvas; pyplot is never
+imported), so no global state is touched and nothing needs a display. Quantities are SI inside; the
+plots show engineers' units, always labelled: lengths in mm, potential in V or kV, |E| in kV/mm and
+surface charge density in uC/m^2.
 
-Curved (second-order) meshes are drawn by their corner vertices, i.e. with straight chords.
-Every function writes a PNG at ``DPI``, releases the figure and returns the path written.
-
-Big meshes (above ``RASTERISE_ABOVE`` elements) are drawn at the resolution a screen shows: as an
-image ``PIXELS`` wide whose pixels take the value of the element under their centre (the potential
-interpolated linearly); elements too small to hold a pixel centre add their value to their
-centroid's pixel, the highest |E| winning, so no peak is averaged away. Outlines, electrodes and
-hotspot markers are drawn as lines and markers at their true positions.
+Every map (regions, potential, |E|) is one image whose pixels are the PNG's own, binned from the
+mesh in numpy (``figures_grid``): the hottest pixel shows the hottest element whatever the mesh
+size, and the potential is interpolated linearly from the corner vertices. Curved (second-order)
+meshes are drawn by their corner vertices, i.e. with straight chords. Outlines, electrodes,
+equipotentials and hotspot markers are drawn as lines and markers at their true positions, in
+fixed margins (no layout engine). Every function writes a PNG at ``DPI`` and returns the path written;
+the figure, never registered with pyplot, goes with its last reference.
 """
 
 from __future__ import annotations
 
-import weakref
-
 import os
+from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
+from matplotlib import colormaps
+from matplotlib.artist import Artist
 from matplotlib.axes import Axes
-from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg
+from matplotlib.cm import ScalarMappable
 from matplotlib.collections import LineCollection
-from matplotlib.colors import ListedColormap, Normalize, hsv_to_rgb
+from matplotlib.colors import Normalize, hsv_to_rgb, to_rgb
 from matplotlib.figure import Figure
+from matplotlib.font_manager import FontProperties
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 from matplotlib.ticker import MaxNLocator
@@ -36,18 +38,21 @@ from matplotlib.tri import Triangulation
 from .charges import ChargeResult
 from .errors import ReportError
 from .fields import ElementFields
+from .figures_grid import (BAR_GAP, BAR_LABELS, BAR_WIDTH, TITLE_AT, VIEW_MARGIN, MapLayout, forget_grids, map_layout,
+                           pixel_grid)
 from .hotspots import HotspotResult
 from .mesh import EXTERIOR
 from .problem import AssembledProblem
 from .solve import Solution
 
 DPI = 120
+#: zlib level of the PNG files (1: fastest; the figures are flat colours and lines, so they stay small)
+PNG_COMPRESSION = 1
+#: tick intervals on a map's axes and colour bar, at most
+TICKS = 6
+_TICK_STEPS = (1, 2, 2.5, 5, 10)
 #: meshes with at least this many elements are drawn without their edges
 MAX_ELEMENTS_WITH_EDGES = 20_000
-#: meshes with more elements than this are drawn through a pixel grid (see the module docstring)
-RASTERISE_ABOVE = 50_000
-#: pixels across the wider side of the view for that grid (a bit finer than the PNG shows)
-PIXELS = 1000
 #: hotspots beyond this rank are outlined but not numbered, to keep the plot legible
 MAX_NUMBERED_HOTSPOTS = 20
 #: a hotspot label closer than this share of the section's size to a higher-ranked one is omitted
@@ -55,14 +60,19 @@ LABEL_SPACING = 0.04
 #: the bound-charge colour scale is clipped at the 99th percentile of |sigma_b| when the peak
 #: exceeds it by this factor (a few facets at a sharp edge would otherwise wash out the rest)
 CLIP_RATIO = 2.0
+#: half-width of the detail view around the highest field, as a share of the model's extent
+DETAIL_HALF_WIDTH = 0.05
 
 _MM = 1e3  # m -> mm
 _KV_PER_MM = 1e-6  # V/m -> kV/mm
 _UC_PER_M2 = 1e6  # C/m^2 -> uC/m^2
 _OUTLINE = "#3c3c3c"
 _CONDUCTOR_FILL = "#8f8f8f"
+_MESH_EDGE = "#4d4d4d"
+_MESH_EDGE_ALPHA = 0.28  # a mesh edge darkens the pixels it passes through by this share
 _HOTSPOT = "#1d4f91"
 _ELECTRODE_COLOURS = ("#202020", "#7a2e12", "#1f5c4a", "#4a2f73", "#6b5a12", "#2a4f7a")
+_BAR_ROOM = BAR_GAP + BAR_WIDTH + BAR_LABELS  # pixels right of a map for its colour bar
 
 
 # --------------------------------------------------------------------------------------- helpers
@@ -100,135 +110,34 @@ def _region_colours(problem: AssembledProblem) -> np.ndarray:
     hsv = np.column_stack([hue, np.full(hue.shape, 0.30), np.full(hue.shape, 0.92)])
     rgb = hsv_to_rgb(hsv)
     is_conductor = np.array([name not in problem.material_of_region for name in names], dtype=bool)
-    rgb[is_conductor] = np.array([int(_CONDUCTOR_FILL[i:i + 2], 16) for i in (1, 3, 5)]) / 255.0
+    rgb[is_conductor] = to_rgb(_CONDUCTOR_FILL)
     return rgb
 
 
-class _Binned:
-    """A view of a big mesh as a pixel grid: each pixel centre takes the value of the element it lies in.
-
-    Elements too small to hold a pixel centre are added by their centroid's pixel, and the largest
-    value wins where several meet ("max": |E|, so no peak is lost at screen resolution); vertex
-    values ("linear") are interpolated at the pixel centres. ``window`` (x0, x1, y0, y1) in mm.
-    Every drawn element is binned once (the figures of a report share it, see ``_binned``); ``only``
-    picks the elements an image shows.
-    """
-
-    def __init__(self, problem: AssembledProblem, window: tuple[float, ...] | None = None):
-        mesh = problem.section.mesh
-        shown = ~problem.section.exterior
-        self.problem, self.window = weakref.ref(problem), window
-        xy = _vertices_mm(problem)
-        corners = xy[:, mesh.t]  # (2, 3, nelements)
-        low, high = corners.min(axis=1), corners.max(axis=1)
-        if window is None:
-            x0, y0 = low[:, shown].min(axis=1) if shown.any() else xy.min(axis=1)
-            x1, y1 = high[:, shown].max(axis=1) if shown.any() else xy.max(axis=1)
-        else:
-            x0, x1, y0, y1 = window
-        pixel = max(x1 - x0, y1 - y0) / PIXELS
-        nx, ny = max(int(np.ceil((x1 - x0) / pixel)), 1), max(int(np.ceil((y1 - y0) / pixel)), 1)
-        self.extent = (x0, x0 + nx * pixel, y0, y0 + ny * pixel)
-        self.nx, self.ny = nx, ny
-        elements = np.flatnonzero(shown & (high[0] >= x0) & (low[0] <= x1) & (high[1] >= y0) & (low[1] <= y1))
-        # pixel centres inside each element's bounding box, then a barycentric inside test
-        i_lo = np.clip(np.ceil((low[0, elements] - x0) / pixel - 0.5), 0, nx).astype(np.int64)
-        i_hi = np.clip(np.floor((high[0, elements] - x0) / pixel - 0.5), -1, nx - 1).astype(np.int64)
-        j_lo = np.clip(np.ceil((low[1, elements] - y0) / pixel - 0.5), 0, ny).astype(np.int64)
-        j_hi = np.clip(np.floor((high[1, elements] - y0) / pixel - 0.5), -1, ny - 1).astype(np.int64)
-        width, height = np.maximum(i_hi - i_lo + 1, 0), np.maximum(j_hi - j_lo + 1, 0)
-        count = width * height
-        owner = np.repeat(np.arange(elements.size), count)
-        local = np.arange(owner.size) - np.repeat(np.cumsum(count) - count, count)
-        i = i_lo[owner] + local % width[owner]
-        j = j_lo[owner] + local // width[owner]
-        px, py = x0 + (i + 0.5) * pixel, y0 + (j + 0.5) * pixel
-        c = corners[:, :, elements[owner]]
-        det = (c[0, 1] - c[0, 0]) * (c[1, 2] - c[1, 0]) - (c[0, 2] - c[0, 0]) * (c[1, 1] - c[1, 0])
-        l1 = ((px - c[0, 0]) * (c[1, 2] - c[1, 0]) - (c[0, 2] - c[0, 0]) * (py - c[1, 0])) / det
-        l2 = ((c[0, 1] - c[0, 0]) * (py - c[1, 0]) - (px - c[0, 0]) * (c[1, 1] - c[1, 0])) / det
-        tolerance = -1e-9
-        inside = (l1 >= tolerance) & (l2 >= tolerance) & (1 - l1 - l2 >= tolerance)
-        self._element = elements[owner[inside]]
-        self._pixel = (j * nx + i)[inside]
-        self._weights = np.column_stack([1 - l1 - l2, l1, l2])[inside]
-        held = np.zeros(mesh.nelements, dtype=bool)
-        held[self._element] = True
-        tiny = elements[~held[elements]]  # elements holding no pixel centre: their centroid's pixel
-        centre = corners[:, :, tiny].mean(axis=1)
-        ci = np.clip(((centre[0] - x0) / pixel).astype(np.int64), 0, nx - 1)
-        cj = np.clip(((centre[1] - y0) / pixel).astype(np.int64), 0, ny - 1)
-        self._tiny, self._tiny_pixel = tiny, cj * nx + ci
-        self._t = mesh.t
-        self._whole_view = window is None
-
-    def image(self, values: np.ndarray, how: str = "max", only: np.ndarray | None = None) -> np.ma.MaskedArray:
-        """Per element ``values`` ("max"), or per vertex values interpolated linearly ("linear"), over the
-        elements where ``only`` (per element) is true (all drawn ones by default)."""
-        flat = np.full(self.nx * self.ny, np.nan)
-        element, pixel, tiny, tiny_pixel, weights = self._element, self._pixel, self._tiny, self._tiny_pixel, self._weights
-        if only is not None:
-            keep, keep_tiny = only[element], only[tiny]
-            element, pixel, weights = element[keep], pixel[keep], weights[keep]
-            tiny, tiny_pixel = tiny[keep_tiny], tiny_pixel[keep_tiny]
-        if how == "linear":
-            flat[pixel] = (values[self._t[:, element]].T * weights).sum(axis=1)
-        else:
-            pixels = np.concatenate([pixel, tiny_pixel])
-            v = np.concatenate([values[element], values[tiny]])
-            order = np.argsort(v, kind="stable")
-            flat[pixels[order]] = v[order]  # increasing order: the largest value lands last
-        return np.ma.masked_invalid(flat.reshape(self.ny, self.nx))
-
-    def draw(self, ax: Axes, values: np.ndarray, how: str = "max", only: np.ndarray | None = None, **style):
-        picture = ax.imshow(self.image(values, how, only), extent=self.extent, origin="lower", interpolation="nearest",
-                            aspect="equal", **style)
-        if self._whole_view:  # the same margins as the drawn meshes of smaller models
-            x0, x1, y0, y1 = self.extent
-            dx, dy = 0.06 * (x1 - x0), 0.06 * (y1 - y0)
-            ax.set_xlim(x0 - dx, x1 + dx)
-            ax.set_ylim(y0 - dy, y1 + dy)
-        return picture
+def _shown_bounds(problem: AssembledProblem) -> tuple[float, float, float, float]:
+    """(x0, x1, y0, y1) in mm of the drawn section (the mapped exterior left out)."""
+    mesh, shown = problem.section.mesh, ~problem.section.exterior
+    xy = _vertices_mm(problem)
+    used = np.zeros(mesh.nvertices, dtype=bool)
+    used[mesh.t[:, shown]] = True
+    used = xy[:, used] if shown.any() else xy
+    return (float(used[0].min()), float(used[0].max()), float(used[1].min()), float(used[1].max()))
 
 
-_BINNINGS: list[_Binned] = []  # of the last model drawn: a report draws five figures of one model
-
-
-def _binned(problem: AssembledProblem, window: tuple[float, ...] | None = None) -> _Binned:
-    """The pixel binning of ``problem`` for ``window``, made once per model and window."""
-    if any(b.problem() is not problem for b in _BINNINGS):
-        _BINNINGS.clear()  # another model: the old binnings are of no further use
-    found = next((b for b in _BINNINGS if b.window == window), None)
-    if found is None:
-        found = _Binned(problem, window)
-        _BINNINGS.append(found)
-    return found
-
-
-def forget_binnings() -> None:
-    """Drop the pixel binnings kept for the figures of the last model (tens of MB for a big mesh)."""
-    _BINNINGS.clear()
-
-
-def _big(problem: AssembledProblem) -> bool:
-    return problem.section.mesh.nelements > RASTERISE_ABOVE
-
-
-def _fill_regions(ax: Axes, problem: AssembledProblem, strength: float = 1.0) -> None:
-    """Fill each region with its colour, mixed with white by ``1 - strength`` (opaque, no seams)."""
-    colours = 1.0 - strength * (1.0 - _region_colours(problem))
-    style = dict(cmap=ListedColormap(colours), vmin=-0.5, vmax=len(colours) - 0.5)
-    regions = problem.section.region_of_element.astype(float)
-    if _big(problem):
-        _binned(problem).draw(ax, regions, **style)
-        return
-    ax.tripcolor(_triangulation(problem), facecolors=regions, **style)
+def _line(ax: Axes, segments: np.ndarray, **style) -> Line2D:
+    """``segments`` (n, 2, 2; mm) as one line with breaks between them (one path: drawn in one call)."""
+    xy = np.full((len(segments), 3, 2), np.nan)
+    xy[:, :2] = segments
+    # not snapped to pixel centres, butt ends: a thin line stays thin and two touching segments do not overlap
+    style = {"snap": False, "solid_capstyle": "butt", **style}
+    line = Line2D(xy[:, :, 0].ravel(), xy[:, :, 1].ravel(), **style)
+    ax.add_line(line)
+    return line
 
 
 def _draw_outline(ax: Axes, problem: AssembledProblem, width: float = 0.6) -> None:
     """Thin lines along the section's boundary and between regions."""
-    ax.add_collection(LineCollection(_segments_mm(problem, _outline_facets(problem)),
-                                     colors=_OUTLINE, linewidths=width, zorder=3))
+    _line(ax, _segments_mm(problem, _outline_facets(problem)), color=_OUTLINE, linewidth=width, zorder=3)
 
 
 def format_voltage(volts: float) -> str:
@@ -238,49 +147,118 @@ def format_voltage(volts: float) -> str:
     return f"{volts:.4g} V"
 
 
-def _new_figure(problem: AssembledProblem, fixed: bool = False) -> tuple[Figure, Axes]:
-    """A figure sized to the section's aspect ratio, with one equal-aspect axes in mm.
-
-    ``fixed``: fixed margins instead of matplotlib's constrained layout, for figures whose only addition
-    is a colour bar beside the axes (it takes its room from the axes): the layout engine's passes over
-    every tick label cost about 0.4 s a figure, more than drawing the field itself.
-    """
-    xy = _vertices_mm(problem)
-    width, height = np.ptp(xy, axis=1)
-    aspect = float(np.clip(height / width if width > 0 else 1.0, 0.45, 1.6))
-    size = (8.0, 1.2 + 5.6 * aspect)
-    fig = Figure(figsize=size, layout=None if fixed else "constrained")
-    if fixed:  # margins in inches: room for tick labels, axis labels and a two-line title
-        fig.subplots_adjust(left=0.85 / size[0], right=1 - 0.15 / size[0], bottom=0.6 / size[1],
-                            top=1 - 0.8 / size[1])
+def _map_figure(problem: AssembledProblem, title: str, window: tuple[float, ...] | None = None,
+                right: int = _BAR_ROOM) -> tuple[Figure, Axes, MapLayout]:
+    """A figure with one map axes in mm, laid out in fixed pixels (``figures_grid.map_layout``): the whole
+    section with a margin, or ``window`` (x0, x1, y0, y1; mm); ``title`` centred above, ``right`` pixels beside."""
+    bounds = _shown_bounds(problem) if window is None else window
+    layout = map_layout(bounds, title.count("\n") + 1, right, margin=VIEW_MARGIN if window is None else 0.0)
+    fig = Figure(figsize=(layout.width / DPI, layout.height / DPI), dpi=DPI)
     FigureCanvasAgg(fig)
-    ax = fig.add_subplot()
-    ax.set_aspect("equal")
+    ax = fig.add_axes(layout.axes_rect)
+    x0, x1, y0, y1 = layout.view
+    ax.set_xlim(x0, x1)
+    ax.set_ylim(y0, y1)
+    # few ticks: each is a handful of artists to make and a label to lay out and draw
+    ax.xaxis.set_major_locator(MaxNLocator(TICKS, steps=_TICK_STEPS))
+    ax.yaxis.set_major_locator(MaxNLocator(TICKS, steps=_TICK_STEPS))
     ax.set_xlabel("x (mm)")
     ax.set_ylabel("y (mm)")
-    ax.set_facecolor("white")
-    ax.margins(0.06)
-    return fig, ax
+    fig.text(0.5, 1 - TITLE_AT / layout.height, title, ha="center", va="top", fontsize=10)
+    return fig, ax, layout
+
+
+class _Pixels(Artist):
+    """An RGBA image (row 0 at the bottom) put on the canvas at a pixel offset as it is: never resampled."""
+
+    def __init__(self, rgba: np.ndarray, left: int, bottom: int):
+        super().__init__()
+        self._rgba = np.ascontiguousarray(rgba)
+        self._left, self._bottom = left, bottom
+
+    def draw(self, renderer) -> None:
+        gc = renderer.new_gc()
+        renderer.draw_image(gc, self._left, self._bottom, self._rgba)
+        gc.restore()
+
+
+def _show(ax: Axes, layout: MapLayout, rgba: np.ndarray) -> None:
+    """An (ny, nx, 4) image exactly under the map's axes, one image pixel per PNG pixel, behind the axes (whose
+    own background is left out)."""
+    ax.patch.set_visible(False)
+    ax.figure.add_artist(_Pixels(rgba, layout.left, layout.bottom)).set_zorder(-1)
+
+
+def _rgba(values: np.ndarray, cmap, norm: Normalize) -> np.ndarray:
+    """A value image through a colour map: RGBA bytes, transparent where NaN."""
+    rgba = cmap(norm(np.ma.masked_invalid(values)), bytes=True)
+    rgba[np.isnan(values)] = 0
+    return rgba
+
+
+def _colour_bar(fig: Figure, layout: MapLayout, cmap, norm: Normalize, label: str, extend: str = "neither"):
+    bar = fig.colorbar(ScalarMappable(norm=norm, cmap=cmap), cax=fig.add_axes(layout.bar_rect), extend=extend)
+    if type(norm) is Normalize:  # (a logarithmic scale keeps its own ticks)
+        bar.locator = MaxNLocator(TICKS, steps=_TICK_STEPS)
+    bar.set_label(label)
+    return bar
+
+
+def _dielectric_map(problem: AssembledProblem, layout: MapLayout, values: np.ndarray, cmap,
+                    norm: Normalize) -> np.ndarray:
+    """Per element ``values`` on the dielectric through ``cmap``, meshed conductors flat grey: RGBA bytes."""
+    grid = pixel_grid(problem, layout)
+    dielectric = problem.dielectric
+    rgba = _rgba(grid.image(values, only=dielectric), cmap, norm)
+    if (~dielectric).any():
+        conductor = ~np.isnan(grid.image(np.zeros(problem.section.mesh.nelements), only=~dielectric))
+        rgba[conductor & (rgba[..., 3] == 0)] = (*(int(round(255 * c)) for c in to_rgb(_CONDUCTOR_FILL)), 255)
+    return rgba
+
+
+def _region_map(problem: AssembledProblem, layout: MapLayout, strength: float = 1.0) -> np.ndarray:
+    """Each region in its colour, mixed with white by ``1 - strength``: RGBA bytes, transparent outside."""
+    colours = np.round(255 * (1.0 - strength * (1.0 - _region_colours(problem)))).astype(np.uint8)
+    region = pixel_grid(problem, layout).image(problem.section.region_of_element.astype(float))
+    have = ~np.isnan(region)
+    rgba = np.zeros(region.shape + (4,), dtype=np.uint8)
+    rgba[have, :3] = colours[region[have].astype(np.int64)]
+    rgba[have, 3] = 255
+    return rgba
 
 
 def _save(fig: Figure, path: str | os.PathLike) -> Path:
     path = Path(path)
     try:
-        fig.savefig(path, dpi=DPI, format="png")
+        fig.savefig(path, dpi=DPI, format="png", pil_kwargs={"compress_level": PNG_COMPRESSION})
     except OSError as exc:
         raise ReportError(f"cannot write the figure {str(path)!r}: {exc.strerror or exc}; "
                           "check that its folder exists and is writable") from None
-    finally:
-        fig.clear()  # the figure was never registered with pyplot; this frees its artists now
+    # (no fig.clear(): it would rebuild every axis's ticks only to drop them; the figure was never
+    # registered with pyplot, so it goes with its last reference)
     return path
+
+
+@lru_cache(maxsize=1)
+def _text_renderer() -> RendererAgg:
+    return RendererAgg(1, 1, DPI)
+
+
+def _text_width(text: str, size: float) -> float:
+    """The width of ``text`` in pixels at font ``size`` (points)."""
+    width, _, _ = _text_renderer().get_text_width_height_descent(text, FontProperties(size=size), ismath=False)
+    return width
+
+
+def forget_binnings() -> None:
+    """Drop the pixel binnings kept for the figures of the last model (tens of MB for a big mesh)."""
+    forget_grids()
 
 
 # --------------------------------------------------------------------------------------- figures
 def plot_regions(problem: AssembledProblem, path: str | os.PathLike) -> Path:
     """Regions filled by colour (legend: region and material), mesh edges, labelled electrodes."""
     section, mesh = problem.section, problem.section.mesh
-    fig, ax = _new_figure(problem)
-    _fill_regions(ax, problem)
     colours = _region_colours(problem)
     handles: list = []
     for index, name in enumerate(section.region_names):
@@ -291,99 +269,80 @@ def plot_regions(problem: AssembledProblem, path: str | os.PathLike) -> Path:
                 else "conductor")
         handles.append(Patch(facecolor=colours[index], edgecolor=_OUTLINE, linewidth=0.5,
                              label=f"{name}: {what}"))
-
-    n = mesh.nelements
-    if n < MAX_ELEMENTS_WITH_EDGES:
-        f2t, outside = mesh.f2t, section.exterior
-        drawn = ~outside[f2t[0]] | ((f2t[1] >= 0) & ~outside[np.maximum(f2t[1], 0)])
-        ax.add_collection(LineCollection(_segments_mm(problem, np.flatnonzero(drawn)),
-                                         colors="#4d4d4d", linewidths=0.2, alpha=0.7, zorder=2))
-        edges_note = f"{n} elements, P{problem.element_order}"
-    else:
-        edges_note = (f"{n} elements, P{problem.element_order}; "
-                      f"mesh edges not drawn (≥ {MAX_ELEMENTS_WITH_EDGES:,} elements)".replace(",", " "))
-    _draw_outline(ax, problem)
-
+    electrodes = []
     for k, conductor in enumerate(problem.conductors):
         if conductor.facets.size == 0:
             continue
         colour = _ELECTRODE_COLOURS[k % len(_ELECTRODE_COLOURS)]
-        segments = _segments_mm(problem, conductor.facets)
-        ax.add_collection(LineCollection(segments, colors=colour, linewidths=2.4, zorder=4))
         label = f"{conductor.name}: " + ("floating" if conductor.floating else format_voltage(conductor.potential))
         handles.append(Line2D([], [], color=colour, linewidth=2.4, label=f"electrode {label}"))
+        electrodes.append((conductor, colour, label))
+
+    n = mesh.nelements
+    with_edges = n < MAX_ELEMENTS_WITH_EDGES
+    edges_note = (f"{n} elements, P{problem.element_order}" if with_edges else
+                  f"{n} elements, P{problem.element_order}; "
+                  f"mesh edges not drawn (≥ {MAX_ELEMENTS_WITH_EDGES:,} elements)".replace(",", " "))
+    legend_width = max((_text_width(h.get_label(), 8) for h in handles), default=0.0) + 60
+    fig, ax, layout = _map_figure(problem, f"Regions, materials and electrodes\n{edges_note}",
+                                  right=int(np.ceil(legend_width)) + 20)
+    rgba = _region_map(problem, layout)
+    if with_edges:
+        f2t, outside = mesh.f2t, section.exterior
+        drawn = ~outside[f2t[0]] | ((f2t[1] >= 0) & ~outside[np.maximum(f2t[1], 0)])
+        flat = rgba.reshape(-1, 4)
+        pixels = pixel_grid(problem, layout).segment_pixels(_segments_mm(problem, np.flatnonzero(drawn)))
+        pixels = pixels[flat[pixels, 3] > 0]
+        edge = np.array([int(_MESH_EDGE[i:i + 2], 16) for i in (1, 3, 5)], dtype=float)
+        flat[pixels, :3] = np.round((1 - _MESH_EDGE_ALPHA) * flat[pixels, :3] + _MESH_EDGE_ALPHA * edge)
+    _show(ax, layout, rgba)
+    _draw_outline(ax, problem)
+
+    for conductor, colour, label in electrodes:
+        segments = _segments_mm(problem, conductor.facets)
+        # a collection (each segment stroked alone): round ends overlapping within one path would darken its rim
+        ax.add_collection(LineCollection(segments, colors=colour, linewidths=2.4, zorder=4, capstyle="round"),
+                          autolim=False)
         midpoints = segments.mean(axis=1)
         top = midpoints[np.argmax(midpoints[:, 1])]  # label at the electrode's highest point
         ax.annotate(label, top, xytext=(0, 5), textcoords="offset points", ha="center", va="bottom",
                     fontsize=8, color=colour, zorder=5,
                     bbox=dict(boxstyle="round,pad=0.2", facecolor="white", edgecolor=colour, alpha=0.85))
-
-    ax.autoscale_view()
-    ax.set_title(f"Regions, materials and electrodes\n{edges_note}", fontsize=10)
-    fig.legend(handles=handles, loc="outside right upper", fontsize=8, frameon=False)
+    fig.legend(handles=handles, loc="upper left", fontsize=8, frameon=False, borderaxespad=0.0,
+               bbox_to_anchor=((layout.left + layout.nx + 16) / layout.width,
+                               (layout.bottom + layout.ny) / layout.height))
     return _save(fig, path)
 
 
 def plot_potential(solution: Solution, path: str | os.PathLike) -> Path:
-    """Filled contours of the potential at the corner vertices, with 15 contour lines."""
+    """The potential at the corner vertices, interpolated linearly, with 15 equipotential lines."""
     problem = solution.problem
     mesh = problem.section.mesh
     volts = solution.potential[: mesh.nvertices]  # vertex DOFs come first in P1 and P2 bases
     scale, unit = (1e-3, "kV") if np.abs(volts).max() >= 1e3 else (1.0, "V")
     values = volts * scale
     low, high = float(values.min()), float(values.max())
-    fig, ax = _new_figure(problem, fixed=True)
-    big = mesh.nelements > RASTERISE_ABOVE
-    if high - low <= 1e-9 * max(abs(high), abs(low), 1e-3):  # one potential everywhere (round-off aside)
+    cmap = colormaps["cividis"]
+    flat = high - low <= 1e-9 * max(abs(high), abs(low), 1e-3)  # one potential everywhere (round-off aside)
+    if flat:
         level = 0.5 * (low + high)
-        shading = ax.tripcolor(_triangulation(problem), facecolors=np.full(mesh.nelements, level),
-                               cmap="cividis", norm=Normalize(level - 1.0, level + 1.0), rasterized=big)
-        _draw_outline(ax, problem)
-        fig.colorbar(shading, ax=ax, shrink=0.85).set_label(f"V ({unit})")
-        ax.set_title(f"Potential ({unit}): {format_voltage(level / scale)} everywhere, no equipotential lines",
-                     fontsize=10)
-        return _save(fig, path)
-
-    dielectric = problem.dielectric
-    if big:
-        return _plot_potential_binned(problem, values, low, high, unit, fig, ax, path)
-    tri = _triangulation(problem, mask=~dielectric if (~dielectric).any() else None)
-    levels = np.linspace(low, high, 31)
-    pad = 1e-9 * (high - low)
-    levels[0], levels[-1] = low - pad, high + pad  # keep flat areas at the extremes inside a band
-    filled = ax.tricontourf(tri, values, levels=levels, cmap="cividis")
-    lines = ax.tricontour(tri, values, levels=np.linspace(low, high, 17)[1:-1], colors="black",
-                          linewidths=0.5, alpha=0.7, negative_linestyles="solid")
-    if (~dielectric).any():  # meshed conductors: flat, in the colour of their potential
-        ax.tripcolor(_triangulation(problem, mask=dielectric), facecolors=values[mesh.t].mean(axis=0),
-                     cmap=filled.cmap, norm=filled.norm)
+        norm = Normalize(level - 1.0, level + 1.0)
+        title = f"Potential ({unit}): {format_voltage(level / scale)} everywhere, no equipotential lines"
+    else:
+        norm = Normalize(low, high)
+        title = f"Potential ({unit}), 15 equipotential lines"
+    fig, ax, layout = _map_figure(problem, title)
+    _show(ax, layout, _rgba(pixel_grid(problem, layout).image(values, "linear"), cmap, norm))
+    lines = None
+    if not flat:
+        dielectric = problem.dielectric
+        tri = _triangulation(problem, mask=~dielectric if (~dielectric).any() else None)
+        lines = ax.tricontour(tri, values, levels=np.linspace(low, high, 17)[1:-1], colors="black",
+                              linewidths=0.5, alpha=0.7, negative_linestyles="solid", zorder=2)
     _draw_outline(ax, problem)
-    bar = fig.colorbar(filled, ax=ax, shrink=0.85)
-    ticks = MaxNLocator(8).tick_values(low, high)
-    bar.set_ticks(ticks[(ticks >= low - pad) & (ticks <= high + pad)])  # not the padded band ends
-    bar.set_label(f"V ({unit})")
-    bar.add_lines(lines)
-    ax.set_title(f"Potential ({unit}), {len(lines.levels)} equipotential lines", fontsize=10)
-    return _save(fig, path)
-
-
-def _plot_potential_binned(problem: AssembledProblem, values: np.ndarray, low: float, high: float, unit: str,
-                           fig: Figure, ax: Axes, path) -> Path:
-    """The potential of a big mesh: element means binned into pixels, equipotentials from that image."""
-    binned = _binned(problem)
-    image = binned.image(values, "linear")
-    picture = binned.draw(ax, values, "linear", cmap="cividis", norm=Normalize(low, high))
-    x0, x1, y0, y1 = binned.extent
-    gx = x0 + (np.arange(binned.nx) + 0.5) * (x1 - x0) / binned.nx
-    gy = y0 + (np.arange(binned.ny) + 0.5) * (y1 - y0) / binned.ny
-    lines = ax.contour(gx, gy, image, levels=np.linspace(low, high, 17)[1:-1], colors="black", linewidths=0.5,
-                       alpha=0.7, negative_linestyles="solid")
-    _draw_outline(ax, problem)
-    bar = fig.colorbar(picture, ax=ax, shrink=0.85)
-    bar.set_label(f"V ({unit})")
-    bar.add_lines(lines)
-    ax.set_title(f"Potential ({unit}), {len(lines.levels)} equipotential lines (drawn at screen resolution)",
-                 fontsize=10)
+    bar = _colour_bar(fig, layout, cmap, norm, f"V ({unit})")
+    if lines is not None:
+        bar.add_lines(lines)
     return _save(fig, path)
 
 
@@ -404,10 +363,6 @@ def hotspot_boundary_facets(problem: AssembledProblem, hotspots: HotspotResult) 
     first = owner[f2t[0]]
     second = np.where(f2t[1] >= 0, owner[np.maximum(f2t[1], 0)], -1)
     return np.flatnonzero((first != second) & ((first >= 0) | (second >= 0)))
-
-
-#: half-width of the detail view around the highest field, as a share of the model's extent
-DETAIL_HALF_WIDTH = 0.05
 
 
 def _area_quantile(values: np.ndarray, areas: np.ndarray, share: float) -> float:
@@ -431,61 +386,60 @@ def plot_field(problem: AssembledProblem, fields: ElementFields, hotspots: Hotsp
     With ``detail`` the view is a close-up around the top-ranked hotspot (or, without hotspots,
     the element of highest |E|), where thin films, corners and gas gaps become visible.
     """
-    mesh = problem.section.mesh
     peak = (fields.element_peak_E if magnitude is None else magnitude.max(axis=1)) * _KV_PER_MM
     dielectric = problem.dielectric
-    fig, ax = _new_figure(problem, fixed=True)
     top = float(peak[dielectric].max())
     scale_top = 1.25 * _area_quantile(peak[dielectric], problem.section.element_areas[dielectric], 1 - 1e-5)
     above = int((peak[dielectric] > scale_top).sum()) if scale_top < 0.5 * top else 0
     norm = Normalize(0.0, (scale_top if above else top) if top > 0 else 1.0)
     window = _detail_window(problem, fields, hotspots) if detail else None
-    if _big(problem):
-        binned = _binned(problem, window)
-        shading = binned.draw(ax, peak, only=dielectric, cmap="YlOrRd", norm=norm)
-        if (~dielectric).any():
-            binned.draw(ax, np.zeros(mesh.nelements), only=~dielectric, cmap=ListedColormap([_CONDUCTOR_FILL]))
-    else:
-        shading = ax.tripcolor(_triangulation(problem, mask=~dielectric), facecolors=peak, cmap="YlOrRd", norm=norm)
-        if (~dielectric).any():  # meshed conductors: flat grey, no field drawn
-            ax.tripcolor(_triangulation(problem, mask=dielectric), facecolors=np.zeros(mesh.nelements),
-                         cmap=ListedColormap([_CONDUCTOR_FILL]))
-    _draw_outline(ax, problem, width=0.5)
 
     found = hotspots.hotspots
+    labels: list[tuple[int, np.ndarray]] = []  # (rank, where in mm) of the numbered hotspots
     if found:
-        ax.add_collection(LineCollection(_segments_mm(problem, hotspot_boundary_facets(problem, hotspots)),
-                                         colors=_HOTSPOT, linewidths=1.3, zorder=4))
-        xy = _vertices_mm(problem)
-        spacing = LABEL_SPACING * float(np.ptp(xy, axis=1).max())
-        placed: list[np.ndarray] = []
+        spacing = LABEL_SPACING * float(np.ptp(_vertices_mm(problem), axis=1).max())
         for rank, spot in enumerate(found[:MAX_NUMBERED_HOTSPOTS], start=1):
             where = np.asarray(spot.location) * _MM
-            if any(np.hypot(*(where - other)) < spacing for other in placed):
+            if any(np.hypot(*(where - other)) < spacing for _, other in labels):
                 continue  # a higher-ranked label sits right here already
-            placed.append(where)
-            ax.plot(*where, marker="+", color=_HOTSPOT, markersize=7, zorder=5)
-            ax.annotate(str(rank), where, xytext=(4, 4), textcoords="offset points", fontsize=8,
-                        color=_HOTSPOT, fontweight="bold", zorder=6,
-                        bbox=dict(boxstyle="circle,pad=0.15", facecolor="white", edgecolor=_HOTSPOT, alpha=0.9))
-        shown = len(placed)
+            labels.append((rank, where))
         note = f"{len(found)} hotspot(s) outlined where |E| ≥ {hotspots.fraction:.0%} of strength, numbered by rank"
-        if shown < len(found):
-            note += f"\n{shown} labels shown; crowded or lower-ranked ones omitted"
+        if len(labels) < len(found):
+            note += f"\n{len(labels)} labels shown; crowded or lower-ranked ones omitted"
     else:
         note = f"no element reaches {hotspots.fraction:.0%} of its material's strength"
-    bar = fig.colorbar(shading, ax=ax, shrink=0.85, extend="max" if above else "neither")
-    bar.set_label("|E| (kV/mm)")
     title = f"Peak |E| per element, max {top:.3g} kV/mm"
     if above:
         title += f"\ncolour scale to {scale_top:.3g} kV/mm; {above} element(s) above it, at sharp corners"
     if detail:
         x0, x1, y0, y1 = window
-        centre = np.array([x0 + x1, y0 + y1]) / 2
-        ax.set_xlim(x0, x1)
-        ax.set_ylim(y0, y1)
-        title = f"Detail around ({centre[0]:.3g}, {centre[1]:.3g}) mm; " + title[0].lower() + title[1:]
-    ax.set_title(f"{title}\n{note}", fontsize=10)
+        title = f"Detail around ({(x0 + x1) / 2:.3g}, {(y0 + y1) / 2:.3g}) mm; " + title[0].lower() + title[1:]
+
+    cmap = colormaps["YlOrRd"]
+    fig, ax, layout = _map_figure(problem, f"{title}\n{note}", window)
+    _show(ax, layout, _dielectric_map(problem, layout, peak, cmap, norm))
+    _draw_outline(ax, problem, width=0.5)
+    if found:
+        _line(ax, _segments_mm(problem, hotspot_boundary_facets(problem, hotspots)), color=_HOTSPOT, linewidth=1.3,
+              zorder=4)
+        where = np.array([w for _, w in labels])
+        ax.plot(where[:, 0], where[:, 1], linestyle="none", marker="+", color=_HOTSPOT, markersize=7, zorder=5)
+        for rank, w in labels:
+            ax.annotate(str(rank), w, xytext=(4, 4), textcoords="offset points", fontsize=8,
+                        color=_HOTSPOT, fontweight="bold", zorder=6,
+                        bbox=dict(boxstyle="circle,pad=0.15", facecolor="white", edgecolor=_HOTSPOT, alpha=0.9))
+    _colour_bar(fig, layout, cmap, norm, "|E| (kV/mm)", extend="max" if above else "neither")
+    return _save(fig, path)
+
+
+def plot_element_map(problem: AssembledProblem, values: np.ndarray, norm: Normalize, path: str | os.PathLike,
+                     label: str, title: str, cmap: str = "YlOrRd") -> Path:
+    """One value per dielectric element through ``norm`` (colour bar ``label``), meshed conductors grey."""
+    colours = colormaps[cmap]
+    fig, ax, layout = _map_figure(problem, title)
+    _show(ax, layout, _dielectric_map(problem, layout, values, colours, norm))
+    _draw_outline(ax, problem, width=0.5)
+    _colour_bar(fig, layout, colours, norm, label)
     return _save(fig, path)
 
 
@@ -508,8 +462,6 @@ def plot_bound_charge(problem: AssembledProblem, charges: ChargeResult, path: st
     sharp edge, where the field is singular) exceed twice the 99th percentile of |sigma_b|, the
     scale is clipped there so the other faces stay readable; the title then says so.
     """
-    fig, ax = _new_figure(problem, fixed=True)
-    _fill_regions(ax, problem, strength=0.3)
     interfaces = charges.interfaces
     facets = np.concatenate([i.facets for i in interfaces]) if interfaces else np.zeros(0, dtype=np.int64)
     sigma = (np.concatenate([i.sigma_b.mean(axis=1) for i in interfaces]) * _UC_PER_M2
@@ -523,16 +475,14 @@ def plot_bound_charge(problem: AssembledProblem, charges: ChargeResult, path: st
             extend = {(True, True): "both", (True, False): "max", (False, True): "min"}[
                 (bool(sigma.max() > typical), bool(sigma.min() < -typical))]
             clip_note = f"\ncolour scale clipped at the 99th percentile; peak |sigma_b| = {peak:.3g} µC/m²"
+    fig, ax, layout = _map_figure(problem, f"Bound surface charge density\nsigma_b = P·n (n out of each dielectric)"
+                                           f"{clip_note}")
+    _show(ax, layout, _region_map(problem, layout, strength=0.3))
     segments = _segments_mm(problem, facets)
     _draw_outline(ax, problem, width=0.4)
-    ax.add_collection(LineCollection(segments, colors=_OUTLINE, linewidths=4.2, zorder=3,
-                                     capstyle="round"))  # casing
-    lines = LineCollection(segments, array=sigma, cmap="RdBu_r", norm=Normalize(-extent, extent),
-                           linewidths=3.0, zorder=4, capstyle="round")
-    ax.add_collection(lines)
-    ax.autoscale_view()
-    bar = fig.colorbar(lines, ax=ax, shrink=0.85, extend=extend)
-    bar.set_label("σ_b (µC/m²)")
-    ax.set_title(f"Bound surface charge density\nsigma_b = P·n (n out of each dielectric){clip_note}",
-                 fontsize=10)
+    _line(ax, segments, color=_OUTLINE, linewidth=4.2, zorder=3, solid_capstyle="round")  # casing
+    cmap, norm = colormaps["RdBu_r"], Normalize(-extent, extent)
+    ax.add_collection(LineCollection(segments, array=sigma, cmap=cmap, norm=norm, linewidths=3.0, zorder=4,
+                                     capstyle="round"), autolim=False)
+    _colour_bar(fig, layout, cmap, norm, "σ_b (µC/m²)", extend=extend)
     return _save(fig, path)

@@ -10,7 +10,7 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from .figures import DPI, _save
+from .figures import _save
 from .probes import ProbeSamples
 
 _MM = 1e3

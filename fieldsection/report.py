@@ -13,13 +13,14 @@ import os
 import shutil
 import tempfile
 from contextlib import contextmanager
-from functools import lru_cache
+from functools import lru_cache, partial
 from pathlib import Path
 from typing import Callable, Iterator
 
 from jinja2 import Environment, FileSystemBytecodeCache, PackageLoader, StrictUndefined, select_autoescape
 
 from .errors import ReportError, ReportFolderTaken
+from .figures_worker import start_drawing
 from .pipeline import SectionResult
 from .probes import csv_name, figure_name, probe_results, sample_probe, write_csv
 from .results import build_results
@@ -79,11 +80,16 @@ def _environment() -> Environment:
     return env
 
 
-def _render_html(results: dict, figures: list[dict[str, str]]) -> str:
-    env = _environment()
+def _template():
+    """The report's page template, compiled (a quarter of a second when not cached: done while the figures
+    are drawn)."""
+    return _environment().get_template("report.html.j2")
+
+
+def _render_html(results: dict, figures: list[dict[str, str]], template=None) -> str:
     planar = results["case"]["model"] == "planar"
-    return env.get_template("report.html.j2").render(r=results, figures=figures, fields_file=FIELDS_FILE,
-                                                     L="_per_m" if planar else "", PER="/m" if planar else "")
+    return (template or _template()).render(r=results, figures=figures, fields_file=FIELDS_FILE,
+                                            L="_per_m" if planar else "", PER="/m" if planar else "")
 
 
 def _data_uri(path: Path) -> str:
@@ -113,67 +119,92 @@ def write_report(
         raise ReportError(f"cannot create the reports folder {str(reports_dir)!r}: {exc.strerror}") from None
     target = reports_dir / result.case.name
     with built_whole(reports_dir, result.case.name, "the report") as staging:
-        if on_step:
-            on_step("results")
-        superposition = check_superposition(result.solution)
-        results = build_results(result, superposition)
-        probes = [sample_probe(result.solution, result.fields, line) for line in result.case.probes]
-        results["probe_lines"] = [{**probe_results(p), "figure_file": figure_name(p.line) if with_figures else None}
-                                  for p in probes]
-        for samples in probes:
-            write_csv(samples, staging / csv_name(samples.line))
+        # the figures are drawn meanwhile, by a child process (``figures_worker``): matplotlib's import and the
+        # maps take about as long as the superposition check, the VTK file and the page's template
+        drawing = (start_drawing(partial(_draw_model_figures, result, staging),
+                                 partial(_draw_check_figures, result, staging)) if with_figures else None)
+        try:
+            if on_step:
+                on_step("results")
+            superposition = check_superposition(result.solution)
+            probes = [sample_probe(result.solution, result.fields, line) for line in result.case.probes]
+            if drawing is not None:
+                drawing.give(superposition, probes)  # their figures are drawn while the rest is written
+            results = build_results(result, superposition)
+            results["probe_lines"] = [{**probe_results(p), "figure_file": figure_name(p.line) if with_figures else None}
+                                      for p in probes]
+            for samples in probes:
+                write_csv(samples, staging / csv_name(samples.line))
+            if on_step:
+                on_step(FIELDS_FILE)
+            write_vtk(result.problem, result.solution, result.fields, result.hotspots, staging / FIELDS_FILE)
+            if result.conduction is not None:  # the DC or AC fields beside the electrostatic ones
+                from .analysis_report import ANALYSIS_FIELDS_FILE, write_analysis_vtk
+
+                write_analysis_vtk(result, staging / ANALYSIS_FIELDS_FILE)
+            template = _template()
+            if drawing is not None and on_step:
+                on_step("figures")  # (what is left of drawing them: the rest went on beside the steps above)
+            drawn = drawing.finish() if drawing is not None else []
+        finally:
+            if drawing is not None:
+                drawing.stop()  # (after an error: the staging folder is removed next)
         figure_list: list[dict[str, str]] = []
-        if with_figures:
-            from . import figures as fig  # matplotlib is slow to import: only when drawing
-
-            magnitude = result.peak_search_field  # as the hotspots were found on it
-
-            plots = [
-                ("regions.png", "Regions, materials, electrodes and mesh", lambda p: fig.plot_regions(result.problem, p)),
-                ("potential.png", "Potential", lambda p: fig.plot_potential(result.solution, p)),
-                ("field.png", "|E| per element with hotspot regions outlined",
-                 lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p, magnitude=magnitude)),
-                ("field_detail.png", "|E| close to the highest-ranked hotspot (or the highest field)",
-                 lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p, detail=True,
-                                          magnitude=magnitude)),
-                ("bound_charge.png", "Bound surface charge density on material faces",
-                 lambda p: fig.plot_bound_charge(result.problem, result.charges, p)),
-            ]
-            if result.conduction is not None:  # the DC or AC analysis's |E| and loss density
-                from .analysis_report import analysis_figures
-
-                plots += analysis_figures(result)
-            if superposition.checked:
-                from .figures_superposition import plot_superposition
-
-                plots.append(("superposition.png", "Charge superposition check: free and bound charge along the faces; "
-                              "V rebuilt from them against the FE potential along a line",
-                              lambda p: plot_superposition(result.problem, result.charges, superposition, p)))
-            if probes:
-                from .figures_probes import plot_probe
-
-                plots += [(figure_name(p.line), f"Probe line {p.line.name}: V, |E| and share of strength along it",
-                           lambda path, p=p: plot_probe(p, path, result.case.hotspot_fraction)) for p in probes]
-            try:
-                for name, caption, draw in plots:
-                    if on_step:
-                        on_step(f"figure {name}")
-                    draw(staging / name)
-                    # embedded, so that report.html alone shows every figure; the PNG files stay beside it
-                    figure_list.append({"file": name, "caption": caption, "data": _data_uri(staging / name)})
-            finally:
-                fig.forget_binnings()  # the figures of this model are drawn: its pixel binnings can go
-        if on_step:
-            on_step(FIELDS_FILE)
-        write_vtk(result.problem, result.solution, result.fields, result.hotspots, staging / FIELDS_FILE)
-        if result.conduction is not None:  # the DC or AC fields beside the electrostatic ones
-            from .analysis_report import ANALYSIS_FIELDS_FILE, write_analysis_vtk
-
-            write_analysis_vtk(result, staging / ANALYSIS_FIELDS_FILE)
+        for name, caption in drawn:
+            # embedded, so that report.html alone shows every figure; the PNG files stay beside it
+            figure_list.append({"file": name, "caption": caption, "data": _data_uri(staging / name)})
         (staging / "results.json").write_text(json.dumps(results, indent=2, default=_json_default, allow_nan=False),
                                              encoding="utf-8")
-        (staging / "report.html").write_text(_render_html(results, figure_list), encoding="utf-8")
+        (staging / "report.html").write_text(_render_html(results, figure_list, template), encoding="utf-8")
     return target
+
+
+def _draw_model_figures(result: SectionResult, staging: Path) -> list[tuple[str, str]]:
+    """Draw the figures of the analysis itself into ``staging``; return their (file, caption) in report order."""
+    from . import figures as fig  # matplotlib is slow to import: only when drawing (and in the drawing process)
+
+    magnitude = result.peak_search_field  # as the hotspots were found on it
+    plots = [
+        ("regions.png", "Regions, materials, electrodes and mesh", lambda p: fig.plot_regions(result.problem, p)),
+        ("potential.png", "Potential", lambda p: fig.plot_potential(result.solution, p)),
+        ("field.png", "|E| per element with hotspot regions outlined",
+         lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p, magnitude=magnitude)),
+        ("field_detail.png", "|E| close to the highest-ranked hotspot (or the highest field)",
+         lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p, detail=True, magnitude=magnitude)),
+        ("bound_charge.png", "Bound surface charge density on material faces",
+         lambda p: fig.plot_bound_charge(result.problem, result.charges, p)),
+    ]
+    if result.conduction is not None:  # the DC or AC analysis's |E| and loss density
+        from .analysis_report import analysis_figures
+
+        plots += analysis_figures(result)
+    for name, _, draw in plots:
+        draw(staging / name)
+    return [(name, caption) for name, caption, _ in plots]
+
+
+def _draw_check_figures(result: SectionResult, staging: Path, superposition, probes) -> list[tuple[str, str]]:
+    """Draw the superposition check's figure and one per probe line; return their (file, caption)."""
+    plots = []
+    if superposition.checked:
+        from .figures_superposition import plot_superposition
+
+        plots.append(("superposition.png", "Charge superposition check: free and bound charge along the faces; "
+                      "V rebuilt from them against the FE potential along a line",
+                      lambda p: plot_superposition(result.problem, result.charges, superposition, p)))
+    if probes:
+        from .figures_probes import plot_probe
+
+        plots += [(figure_name(p.line), f"Probe line {p.line.name}: V, |E| and share of strength along it",
+                   lambda path, p=p: plot_probe(p, path, result.case.hotspot_fraction)) for p in probes]
+    try:
+        for name, _, draw in plots:
+            draw(staging / name)
+    finally:
+        from .figures import forget_binnings
+
+        forget_binnings()  # the figures of this model are drawn: its pixel binnings can go
+    return [(name, caption) for name, caption, _ in plots]
 
 
 _PARTIAL, _OLD = ".partial-", ".old-"  # hidden working folders: .<case>.partial-<pid>-<random>
