@@ -88,7 +88,7 @@ def _run(args: argparse.Namespace) -> int:
         case = replace(case, solver=args.solver)
     if args.max_nodes is not None:
         case = replace(case, mesh=replace(case.mesh, max_nodes=args.max_nodes))
-    writing = 8 + len(case.probes)  # results, six figures, one per probe line, the VTK file
+    writing = 3  # results, the VTK file, the figures (drawn beside the other two)
     with tqdm(total=len(STAGES) + writing, disable=args.quiet, unit="stage", desc=case.name, file=sys.stderr) as bar:
         peaks: list[tuple[str, float, float]] = []  # (stage, start time, peak memory so far)
         computing = [True]
@@ -103,7 +103,7 @@ def _run(args: argparse.Namespace) -> int:
         with gmsh_limits(seconds=args.time_limit):
             result = analyse(case, on_stage=step)
         computing[0] = False
-        bar.total = bar.n + writing if not args.no_figures else bar.n + 2
+        bar.total = bar.n + (writing if not args.no_figures else 2)
         folder = write_report(result, args.reports, with_figures=not args.no_figures, on_step=step)
         bar.update(bar.total - bar.n)
         peaks.append(("end", time.perf_counter(), _peak_memory_gib()))
