@@ -100,6 +100,10 @@ def _run(args: argparse.Namespace) -> int:
             bar.update(1)
             peaks.append((name, time.perf_counter(), _peak_memory_gib()))
 
+        if not args.no_figures:
+            from .figures_worker import warm_up
+
+            warm_up()  # matplotlib's import, beside the analysis
         with gmsh_limits(seconds=args.time_limit):
             result = analyse(case, on_stage=step)
         computing[0] = False

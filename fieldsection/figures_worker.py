@@ -42,8 +42,33 @@ class Drawing:
         raise NotImplementedError
 
 
+_warming: threading.Thread | None = None
+
+
+def warm_up() -> None:
+    """Import matplotlib and the figure modules in a background thread, now: for a process that draws a report's
+    figures later and little else (a command-line run). The half second of the import then overlaps the analysis,
+    much of which waits for gmsh's child process or runs in compiled code. It leaves out matplotlib's 3D toolkit,
+    as the drawing process does."""
+    global _warming
+    if _warming is None:
+        _warming = threading.Thread(target=_import_figures, name="fieldsection-figures-import", daemon=True)
+        _warming.start()
+
+
+def _import_figures() -> None:
+    try:
+        _without_3d_toolkit()
+        for name in ("fieldsection.figures", "fieldsection.figures_superposition", "fieldsection.figures_probes"):
+            importlib.import_module(name)
+    except Exception:  # noqa: BLE001 - the drawing imports them again and reports what fails
+        pass
+
+
 def start_drawing(first: Callable[[], Drawn], then: Callable[..., Drawn]) -> Drawing:
     """Start ``first()`` in a forked child (Linux) or a thread; ``give(*args)`` adds ``then(*args)``."""
+    if _warming is not None:
+        _warming.join()  # never fork while that thread may hold the import lock
     if sys.platform == "linux" and not multiprocessing.current_process().daemon:
         return _Child(first, then)
     return _Thread(first, then)  # (a daemonic process may not have children)

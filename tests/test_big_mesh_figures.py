@@ -10,6 +10,8 @@ figures drawn beside the report (figures_worker) return their files or raise the
 from __future__ import annotations
 
 import os
+import subprocess
+import sys
 
 import numpy as np
 import pytest
@@ -152,3 +154,19 @@ def test_a_map_image_lands_on_its_axes_right_way_up(tmp_path):
     assert (pixels[top, layout.left + layout.nx - 1] == [0, 0, 255]).all()  # top-right pixel
     assert (pixels[top - 1, layout.left] == [255, 255, 255]).all()  # just above: the figure's white
     assert (pixels[top + layout.ny, layout.left] == [255, 255, 255]).all()  # just below
+
+
+def test_figure_modules_imported_beside_the_analysis_before_the_drawing_forks():
+    # in a fresh interpreter (matplotlib not yet imported): warm_up imports in a thread, and start_drawing waits
+    # for it before forking, so the child never inherits a held import lock and finds matplotlib loaded
+    script = ("import sys\n"
+              "from fieldsection.figures_worker import start_drawing, warm_up\n"
+              "assert 'matplotlib' not in sys.modules\n"
+              "warm_up()\n"
+              "drawing = start_drawing(lambda: [('first', sys.modules.get('fieldsection.figures') is not None)],\n"
+              "                        lambda: [])\n"
+              "drawing.give()\n"
+              "print(drawing.finish())\n")
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip() == "[('first', True)]"
