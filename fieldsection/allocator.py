@@ -12,12 +12,15 @@ thousand (assembly, field recovery, the report). On the demo busbar the kernel's
 tops out (blocks up to 32 MiB come from the heap, which is trimmed past 64 MiB free), then gives the
 free memory back (``malloc_trim(0)``) and restores the thresholds the environment set. A process
 whose thresholds the environment left alone (a local worker) keeps glibc's adaptive rule, untouched;
-so does any process off glibc.
+so does any process off glibc. The environment read is the one the process started with
+(``/proc/self/environ``), which glibc read: the nanny also sets the variable in ``os.environ`` of the
+process that starts a ``LocalCluster`` (a notebook), whose malloc was long set up by then.
 """
 
 from __future__ import annotations
 
 import ctypes
+import functools
 import os
 import threading
 from contextlib import contextmanager
@@ -58,6 +61,17 @@ def fixed_thresholds(environ: Mapping[str, str]) -> tuple[int, int] | None:
     return trim, mmap
 
 
+@functools.cache
+def startup_environment() -> Mapping[str, str]:
+    """The environment this process started with (Linux), else the current one."""
+    try:
+        raw = open("/proc/self/environ", "rb").read()
+    except OSError:
+        return dict(os.environ)
+    pairs = (item.decode(errors="replace").partition("=") for item in raw.split(b"\0") if item)
+    return {name: value for name, _, value in pairs}
+
+
 def _glibc() -> ctypes.CDLL | None:
     try:
         os.confstr("CS_GNU_LIBC_VERSION")
@@ -81,7 +95,7 @@ def roomy_malloc() -> Iterator[bool]:
     Yields whether anything was changed.
     """
     global _inside
-    fixed = fixed_thresholds(os.environ)
+    fixed = fixed_thresholds(startup_environment())
     libc = _glibc() if fixed is not None else None
     if libc is None:
         yield False

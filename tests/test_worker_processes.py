@@ -25,7 +25,8 @@ import numpy as np
 import pytest
 
 from fieldsection import gmsh_adapter
-from fieldsection.allocator import ROOMY_MMAP_THRESHOLD, ROOMY_TRIM_THRESHOLD, fixed_thresholds
+from fieldsection.allocator import (ROOMY_MMAP_THRESHOLD, ROOMY_TRIM_THRESHOLD, fixed_thresholds, roomy_malloc,
+                                    startup_environment)
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -97,6 +98,15 @@ def test_a_local_worker_keeps_glibcs_adaptive_thresholds():
     assert counts["inside"] < 0.05 * pages
 
 
+@pytest.mark.skipif(fixed_thresholds(startup_environment()) is not None, reason="this process started with them set")
+def test_a_threshold_set_after_start_up_is_not_glibcs(monkeypatch):
+    # a LocalCluster's nanny sets MALLOC_TRIM_THRESHOLD_ in the starting process's os.environ too: this
+    # process's malloc never read it, and keeps its adaptive rule
+    monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")
+    with roomy_malloc() as changed:
+        assert changed is False
+
+
 def test_roomy_thresholds_are_glibcs_own_ceiling():
     # glibc's malloc.c (from memory): DEFAULT_MMAP_THRESHOLD_MAX = 4 * 1024 * 1024 * sizeof(long) on
     # 64-bit, and the dynamic rule sets the trim threshold to twice the mmap threshold
@@ -117,3 +127,25 @@ def test_a_daemonic_worker_meshes_in_its_own_child():
     areas = 0.5 * np.abs((b - a)[:, 0] * (c - a)[:, 1] - (b - a)[:, 1] * (c - a)[:, 0])
     assert areas.sum() == pytest.approx(12 * np.sin(2 * np.pi / 24), rel=1e-12)
     assert children == []  # the meshing child was reaped
+
+
+@pytest.mark.skipif(not _glibc(), reason="glibc's malloc only")
+def test_a_dask_workers_thresholds_are_lifted_for_a_variant():
+    distributed = pytest.importorskip("distributed")
+    saved = dict(os.environ)  # the nanny writes its variables into this process's os.environ too
+
+    def in_the_worker():
+        from fieldsection.allocator import fixed_thresholds, roomy_malloc, startup_environment
+
+        with roomy_malloc() as changed:
+            return fixed_thresholds(startup_environment()), changed
+
+    try:
+        with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=True,
+                                      dashboard_address=None) as cluster, distributed.Client(cluster) as client:
+            [(fixed, changed)] = client.run(in_the_worker).values()
+    finally:
+        os.environ.clear()
+        os.environ.update(saved)
+    assert fixed == (65536, 128 * 1024)  # distributed's default pre-spawn-environ, glibc's default mmap threshold
+    assert changed is True
