@@ -10,6 +10,9 @@ run four times, each into a fresh reports folder (so a fresh cache) unless said 
 1. one local worker;  2. two local workers;  3. two local workers again on run 2's folder
 (every variant from the cache);  4. a ``dask.distributed.LocalCluster`` with two worker processes.
 Each time is the whole ``run_study`` (variants, table, plots, index, copying the variant reports).
+Beside each wall time, the CPU seconds of this process and of the processes it started that ended
+(the workers and their gmsh children; for the cluster, from its start to its close): on a shared
+machine the wall times of two runs can differ by the other users' load, the CPU seconds much less.
 
 Targets (issue 12), printed beside the ratios measured in this one run:
 - two local workers at least 1.8x faster than one (on a 2-core machine);
@@ -25,6 +28,7 @@ import argparse
 import json
 import os
 import platform
+import resource
 import sys
 import tempfile
 import time
@@ -49,6 +53,12 @@ unit = "mm"
 label = "voltage"
 together = {{ "electrodes.bar_plus" = ["1 kV", "1.5 kV", "2 kV", "2.5 kV"], "electrodes.bar_minus" = ["-1 kV", "-1.5 kV", "-2 kV", "-2.5 kV"] }}
 """
+
+
+def _cpu() -> float:
+    """CPU seconds used so far by this process and by its children that have ended (and were waited for)."""
+    own, children = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+    return own.ru_utime + own.ru_stime + children.ru_utime + children.ru_stime
 
 
 def _timed(study, reports, settings):
@@ -79,12 +89,17 @@ def main(argv=None) -> int:
                               encoding="utf-8")
         study = load_study(study_file)
         assert len(study.variants()) == 16
-        times = {}
+        times, cpu, loads = {}, {}, {}
         print("1 local worker ...", flush=True)
+        start, loads["one_worker"] = _cpu(), os.getloadavg()[0]
         times["one_worker_s"], one = _timed(study, tmp / "one", run_settings(workers=1, max_dofs=args.max_dofs))
-        print(f"  {times['one_worker_s']:.1f} s\n2 local workers ...", flush=True)
+        cpu["one_worker_cpu_s"] = _cpu() - start
+        print(f"  {times['one_worker_s']:.1f} s ({cpu['one_worker_cpu_s']:.0f} s of CPU)\n2 local workers ...", flush=True)
+        start, loads["two_workers"] = _cpu(), os.getloadavg()[0]
         times["two_workers_s"], two = _timed(study, tmp / "two", run_settings(workers=2, max_dofs=args.max_dofs))
-        print(f"  {times['two_workers_s']:.1f} s\n2 local workers, every variant cached ...", flush=True)
+        cpu["two_workers_cpu_s"] = _cpu() - start  # the pool is shut down (its workers waited for) by run_study
+        print(f"  {times['two_workers_s']:.1f} s ({cpu['two_workers_cpu_s']:.0f} s of CPU)\n"
+              "2 local workers, every variant cached ...", flush=True)
         times["cache_hit_s"], hit = _timed(study, tmp / "two", run_settings(workers=2, max_dofs=args.max_dofs))
         assert hit.log.ran == [], "the rerun should read every variant from the cache"
         print(f"  {times['cache_hit_s']:.2f} s", flush=True)
@@ -92,10 +107,16 @@ def main(argv=None) -> int:
             from distributed import LocalCluster
 
             print("Dask LocalCluster, 2 worker processes ...", flush=True)
+            saved = dict(os.environ)  # the nanny writes its worker variables into this process's environment
+            start, loads["dask"] = _cpu(), os.getloadavg()[0]
             with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
                 times["dask_s"], dask = _timed(study, tmp / "dask", run_settings(
                     workers=2, scheduler=cluster.scheduler_address, max_dofs=args.max_dofs))
-            print(f"  {times['dask_s']:.1f} s (cluster start-up not counted)", flush=True)
+            cpu["dask_cpu_s"] = _cpu() - start  # the closed cluster's workers were waited for
+            os.environ.clear()
+            os.environ.update(saved)
+            print(f"  {times['dask_s']:.1f} s (cluster start-up not counted; {cpu['dask_cpu_s']:.0f} s of CPU, "
+                  "start-up counted)", flush=True)
 
     ratios = {
         "speedup_two_over_one_workers": times["one_worker_s"] / times["two_workers_s"],
@@ -103,6 +124,7 @@ def main(argv=None) -> int:
     }
     if "dask_s" in times:
         ratios["dask_over_local_pool"] = times["dask_s"] / times["two_workers_s"]
+        cpu_ratio = cpu["dask_cpu_s"] / cpu["two_workers_cpu_s"]
     targets = {"speedup_two_over_one_workers": (">=", 1.8), "cache_hit_over_first_run": ("<", 0.05),
                "dask_over_local_pool": ("<=", 1.2)}
     print(f"\n{'ratio':32s} {'measured':>9s}  target")
@@ -110,14 +132,20 @@ def main(argv=None) -> int:
         sign, target = targets[name]
         met = value >= target if sign == ">=" else (value < target if sign == "<" else value <= target)
         print(f"{name:32s} {value:9.3f}  {sign} {target}  {'met' if met else 'NOT met'}")
-    print(f"(cores available: {len(os.sched_getaffinity(0))}; load average at the end: "
+    if "dask_s" in times:
+        print(f"(CPU seconds, Dask LocalCluster / 2 local workers: {cpu_ratio:.3f}, no target)")
+    print(f"(cores available: {len(os.sched_getaffinity(0))}; load average at the start of each run: "
+          f"{', '.join(f'{k} {v:.1f}' for k, v in loads.items())}; at the end: "
           f"{', '.join(f'{x:.1f}' for x in os.getloadavg())})")
     out = ROOT / "benchmarks" / "results" / f"study-{datetime.now(timezone.utc).strftime('%Y%m%d-%H%M%S')}.json"
     out.parent.mkdir(exist_ok=True)
     out.write_text(json.dumps({
         "machine": platform.platform(), "python": platform.python_version(),
         "cores": len(os.sched_getaffinity(0)), "load_average_end": os.getloadavg(),
-        "max_dofs": args.max_dofs or "the case's own", "variants": 16, "seconds": times, "ratios": ratios,
+        "load_average_1min_at_start": loads,
+        "max_dofs": args.max_dofs or "the case's own", "variants": 16, "seconds": times, "cpu_seconds": cpu,
+        "ratios": ratios,
+        "cpu_ratio_dask_over_local_pool": cpu_ratio if "dask_s" in times else None,
         "ratio_definitions": {
             "speedup_two_over_one_workers": "whole study, 1 local worker / 2 local workers, fresh caches",
             "cache_hit_over_first_run": "rerun with every variant cached / the 2-worker first run",

@@ -169,12 +169,10 @@ def _isolated(work, *args):
     seconds = limits.seconds or MESHING_TIME_LIMIT
     memory = limits.memory_bytes or int(MESHING_MEMORY_SHARE * machine_memory())
     share = "" if limits.memory_bytes else f" ({MESHING_MEMORY_SHARE:.0%} of this machine's)"
-    context = multiprocessing.get_context("fork")
-    receiver, sender = context.Pipe(duplex=False)
-    child = context.Process(target=_child, args=(sender, work, args), daemon=True)
+    receiver, sender = multiprocessing.Pipe(duplex=False)
     inherited = anonymous_memory(os.getpid())  # the child's memory at the fork, not its own doing
     deadline = time.monotonic() + seconds
-    child.start()
+    child = _fork_child(receiver, sender, work, args)
     sender.close()
     try:
         while not receiver.poll(max(0.0, min(_WATCH_SECONDS, deadline - time.monotonic()))):
@@ -183,7 +181,7 @@ def _isolated(work, *args):
                     f"gmsh (reading the geometry script and meshing) ran longer than the time limit of "
                     f"{seconds:g} s and was stopped; look for an endless loop in the script or coarsen the mesh "
                     "sizes, or raise the limit with --time-limit SECONDS")
-            used = anonymous_memory(child.pid) - inherited
+            used = anonymous_memory(child) - inherited
             if used > memory:
                 raise MeshError(
                     f"gmsh (reading the geometry script and meshing) took {used / 2**30:.2f} GiB of memory, over "
@@ -191,8 +189,7 @@ def _isolated(work, *args):
                     "look for huge lists in the script")
         status, payload = receiver.recv()
     except EOFError:
-        child.join()
-        code = child.exitcode
+        code = _reap(child)
         cause = f"killed by signal {-code}" if code is not None and code < 0 else f"exit code {code}"
         if code == -9:
             cause += ", probably for lack of memory"
@@ -200,18 +197,43 @@ def _isolated(work, *args):
             f"gmsh stopped unexpectedly ({cause}) while reading the geometry script or meshing; coarsen the mesh "
             "sizes, simplify the geometry, or check the script in gmsh's own window") from None
     except BaseException:  # a limit passed, or the user interrupted: stop the child first
-        child.kill()
-        child.join()
+        os.kill(child, signal.SIGKILL)
+        _reap(child)
         raise
     finally:
         receiver.close()
-    child.join()
+    _reap(child)
     if status == "error":
         raise payload
     return payload
 
 
-def _die_with_parent() -> None:
+def _fork_child(receiver, sender, work, args) -> int:
+    """Fork the child that runs ``work(*args)`` and sends its outcome; its process id.
+
+    A plain fork rather than ``multiprocessing.Process``, which refuses to start from a daemonic
+    process (a Dask worker, a process pool's worker); the child needs none of its bookkeeping: the
+    parent always reaps it (``_reap``), and the child dies with its parent (``_die_with_parent``).
+    """
+    parent = os.getpid()
+    pid = os.fork()
+    if pid == 0:  # the child: never returns into the parent's code
+        code = 1
+        try:
+            receiver.close()
+            _child(sender, work, args, parent)
+            code = 0
+        finally:
+            os._exit(code)
+    return pid
+
+
+def _reap(pid: int) -> int:
+    """Wait for the child to end: its exit code, or minus the signal that ended it."""
+    return os.waitstatus_to_exitcode(os.waitpid(pid, 0)[1])
+
+
+def _die_with_parent(parent: int) -> None:
     """Ask Linux to kill this child when its parent dies (even by SIGKILL, which leaves the parent no say)."""
     try:
         import ctypes
@@ -219,11 +241,13 @@ def _die_with_parent() -> None:
         ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # 1: PR_SET_PDEATHSIG
     except (OSError, AttributeError):
         pass
+    if os.getppid() != parent:  # the parent died before the request was made
+        os._exit(1)
 
 
-def _child(sender, work, args) -> None:
+def _child(sender, work, args, parent: int) -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle: it stops this child
-    _die_with_parent()
+    _die_with_parent(parent)
     try:
         sender.send(("ok", work(*args)))
     except (GeometryError, MeshError) as exc:
