@@ -18,13 +18,16 @@ from __future__ import annotations
 
 from dataclasses import dataclass, replace
 from functools import cached_property
-from typing import Mapping
+from typing import TYPE_CHECKING, Mapping
 
 import numpy as np
 from scipy.interpolate import CubicSpline
 from scipy.spatial import cKDTree
 
 from .splitting import Snap, edge_keys, find_edges, unique_edges, with_mid_edge_nodes
+
+if TYPE_CHECKING:  # (gmsh_adapter imports this module for CurveShape)
+    from .gmsh_adapter import RawMesh
 
 #: an element is split while it is larger than this times the size wanted for it (the geometric middle
 #: of keeping it, 1, and halving it, 2)
@@ -171,7 +174,7 @@ def triangle_sizes(points: np.ndarray, triangles: np.ndarray) -> np.ndarray:
     return np.sqrt(4.0 / np.sqrt(3.0) * area)
 
 
-def refined_raw(raw, wanted: np.ndarray, curved: bool):
+def refined_raw(raw: RawMesh, wanted: np.ndarray, curved: bool) -> RawMesh:
     """The mesh ``raw`` (a ``gmsh_adapter.RawMesh``, without open space) with every triangle split until it
     is no larger than ``SPLIT_ABOVE`` times its ``wanted`` size (m, one per triangle; ``inf``: keep), in at
     most ``MAX_ROUNDS`` halvings. Curved meshes get their mid-edge nodes on the curves again."""
