@@ -30,7 +30,7 @@ from typing import Any, Callable, Iterable, Mapping, Sequence
 from . import __version__
 from .allocator import roomy_malloc
 from .errors import FieldSectionError, ReportError
-from .report import new_staging_folder, publish_folder, remove_stale_folders
+from .report import built_whole, remove_stale_folders
 from .study import RunSettings, Study, StudyError, Variant
 
 log = logging.getLogger("fieldsection.study")
@@ -221,22 +221,13 @@ class VariantCache:
         return path if path.is_dir() else None
 
     def put(self, record: Mapping[str, Any], files: Mapping[str, bytes]) -> None:
-        key = record["key"]
-        target = self.folder / key
-        staging = new_staging_folder(self.folder, key)
-        try:
+        # a record for the same input: the newer one wins
+        with built_whole(self.folder, record["key"], "a variant's record in the study cache") as staging:
             if files:
                 (staging / REPORT_FOLDER).mkdir()
                 for name, data in files.items():
                     (staging / REPORT_FOLDER / name).write_bytes(data)
             (staging / RECORD_FILE).write_text(json.dumps(record, indent=1), encoding="utf-8")
-            publish_folder(staging, target)  # a record for the same input: the newer one wins
-        except OSError as exc:
-            shutil.rmtree(staging, ignore_errors=True)
-            raise ReportError(f"cannot store a variant in the study cache {str(self.folder)!r}: {exc}") from exc
-        except BaseException:
-            shutil.rmtree(staging, ignore_errors=True)
-            raise
 
     def note(self, line: str) -> None:
         """Append a line to the cache's run log (kept across runs) and to the logger."""
