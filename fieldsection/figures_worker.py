@@ -21,6 +21,7 @@ import signal
 import sys
 import threading
 import warnings
+from abc import ABC, abstractmethod
 from concurrent.futures import Future, ThreadPoolExecutor
 from typing import Any, Callable
 
@@ -29,17 +30,20 @@ from .errors import ReportError
 Drawn = list  # what ``first`` and ``then`` return: (file, caption) pairs
 
 
-class Drawing:
-    """Figures being drawn (see the module docstring)."""
+class Drawing(ABC):
+    """Figures being drawn (see the module docstring): in a forked child (``_Child``) or a thread (``_Thread``)."""
 
+    @abstractmethod
     def give(self, *args: Any) -> None:
-        raise NotImplementedError
+        """Hand ``args`` over for ``then(*args)``."""
 
+    @abstractmethod
     def finish(self) -> Drawn:
-        raise NotImplementedError
+        """Wait; what ``first`` and ``then`` drew, or their error."""
 
+    @abstractmethod
     def stop(self) -> None:
-        raise NotImplementedError
+        """End the drawing early (the report failed)."""
 
 
 _warming: threading.Thread | None = None
