@@ -124,26 +124,31 @@ def outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.nd
     mesh = problem.section.mesh
     if _is_linear(problem):
         return _linear_outward_flux(solution, elements, local_vertices, chord_normals, coefficient)
-    out = np.zeros(len(elements))
+    if len(elements) == 0:
+        return np.zeros(0)
     low, high = local_vertices.min(axis=1), local_vertices.max(axis=1)
-    for a, b in _EDGES:
-        on_edge = np.flatnonzero((low == a) & (high == b))
-        if on_edge.size == 0:
-            continue
-        start, direction = _VERTICES[:, a], _VERTICES[:, b] - _VERTICES[:, a]
-        points = start[:, None] + direction[:, None] * _GAUSS_S[None, :]
-        tind = elements[on_edge]
-        basis = Basis(mesh, problem.basis.elem, quadrature=(points, _GAUSS_W), elements=tind)
-        grad = gradient_at_points(basis, solution.potential)  # (2, n, q)
-        jacobian = basis.mapping.DF(points, tind=tind)  # (2, 2, n, q)
-        tangent = np.einsum("ijnq,j->inq", jacobian, direction)  # dx/ds, |.| is the length element
-        normal = np.stack([tangent[1], -tangent[0]])
-        sign = np.sign(np.einsum("inq,ni->n", normal, chord_normals[on_edge]))
-        e_dot_n = -np.einsum("inq,inq->nq", grad, normal)
-        if problem.axisymmetric:  # the surface of revolution swept by the edge: 2 pi r ds
-            e_dot_n = e_dot_n * 2 * np.pi * basis.mapping.F(points, tind=tind)[0]
-        out[on_edge] = coefficient[on_edge] * sign * (e_dot_n @ _GAUSS_W)
-    return out
+    edge = np.select([(low == a) & (high == b) for a, b in _EDGES], np.arange(len(_EDGES)), -1)
+    if (edge < 0).any():
+        raise ValueError("local_vertices must name two different local vertices of each element")
+    # one basis at the Gauss points of all three edges of every element involved (its set-up costs about as
+    # much for nine points as for three), each (element, edge) then reads its own three
+    starts = np.stack([_VERTICES[:, a] for a, _ in _EDGES])  # (3 edges, 2)
+    directions = np.stack([_VERTICES[:, b] - _VERTICES[:, a] for a, b in _EDGES])
+    points = (starts[:, :, None] + directions[:, :, None] * _GAUSS_S[None, None, :]).transpose(1, 0, 2).reshape(2, -1)
+    tind, which = np.unique(elements, return_inverse=True)
+    basis = Basis(mesh, problem.basis.elem, quadrature=(points, np.tile(_GAUSS_W, len(_EDGES))), elements=tind)
+    q = len(_GAUSS_S)
+    columns = edge[:, None] * q + np.arange(q)[None, :]  # (n, q): this side's points among the nine
+    rows = which[:, None]
+    grad = gradient_at_points(basis, solution.potential)[:, rows, columns]  # (2, n, q)
+    jacobian = basis.mapping.DF(points, tind=tind)[:, :, rows, columns]  # (2, 2, n, q)
+    tangent = np.einsum("ijnq,nj->inq", jacobian, directions[edge])  # dx/ds, |.| is the length element
+    normal = np.stack([tangent[1], -tangent[0]])
+    sign = np.sign(np.einsum("inq,ni->n", normal, chord_normals))
+    e_dot_n = -np.einsum("inq,inq->nq", grad, normal)
+    if problem.axisymmetric:  # the surface of revolution swept by the edge: 2 pi r ds
+        e_dot_n = e_dot_n * 2 * np.pi * basis.mapping.F(points, tind=tind)[0][rows, columns]
+    return coefficient * sign * (e_dot_n @ _GAUSS_W)
 
 
 def _linear_outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.ndarray,

@@ -9,6 +9,7 @@ linear in the number of sources for a fixed set of probes. Used by ``superpositi
 
 from __future__ import annotations
 
+from functools import lru_cache
 from math import comb
 
 import numpy as np
@@ -77,6 +78,7 @@ class LogPotentialSum:
         """Sources at w: line charges q (C/m) and/or double-layer moments m (complex, C), either may be None."""
         if w.size == 0:
             return
+        charged = q is not None
         if q is None:
             q = np.zeros(w.size)
         self.count += w.size
@@ -105,7 +107,7 @@ class LogPotentialSum:
                 terms[k - 1] -= shifted
         first = np.flatnonzero(np.r_[True, cells[1:] != cells[:-1]])
         self.moments[:, cells[first]] += np.add.reduceat(terms, first, axis=1)
-        self._add_direct(w, q, m, cells)
+        self._add_direct(w, q if charged else None, m, cells)
 
     def _add_direct(self, w, q, m, cells) -> None:
         n = 2 ** self.depth  # (sources sorted by cell)
@@ -126,16 +128,20 @@ class LogPotentialSum:
                     self._pairs(probe[mine], starts[cell[mine]], many[mine], w, q, m)
 
     def _pairs(self, probe, first, many, w, q, m) -> None:
-        """Direct sum over sources first[k] .. first[k] + many[k] - 1 for each probe[k]."""
+        """Direct sum over sources first[k] .. first[k] + many[k] - 1 for each probe[k]; a source on a probe
+        adds nothing (its own point, where the potential is integrable)."""
         pair_probe = np.repeat(probe, many)
         source = np.repeat(first - (np.cumsum(many) - many), many) + np.arange(many.sum())
         d = w[source] - self.z[pair_probe]
-        distance = np.abs(d)
-        safe = distance > 0
-        value = np.zeros(d.shape)
-        value[safe] = -q[source][safe] * np.log(distance[safe])
-        if m is not None:
-            value[safe] += (m[source][safe] / d[safe]).real
+        r2 = d.real * d.real + d.imag * d.imag
+        on_probe = r2 == 0
+        r2[on_probe] = 1.0  # ln 1 = 0, and its moment term is zeroed below
+        value = np.zeros(r2.shape)
+        if q is not None:  # -q ln r = -q ln(r^2) / 2
+            value = np.log(r2)
+            value *= -0.5 * q[source]
+        if m is not None:  # Re(m / d) = Re(m conj(d)) / r^2
+            value += (m[source] * d.conjugate()).real / r2 * ~on_probe
         self.direct += np.bincount(pair_probe, value, len(self.z))
 
     def _far(self, level: int, charge: np.ndarray, moments: np.ndarray) -> np.ndarray:
@@ -160,29 +166,24 @@ class LogPotentialSum:
         return out
 
     def _to_parent(self, level: int, charge: np.ndarray, moments: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Shift the expansions of ``level`` to the centres of their parents (one level coarser)."""
+        """Shift the expansions of ``level`` to the centres of their parents (one level coarser): the four
+        children of a parent sit at the four fixed offsets (+-1 +- 1j) / 4 parent sizes from its centre, so
+        the shift is one fixed matrix per child position, applied to the cells in use at once (a matrix
+        product; each parent has one child per position, so no two of them land on the same parent)."""
         n = 2 ** level
+        half = n // 2
         used = np.flatnonzero((charge != 0) | (moments != 0).any(axis=0))
         i, j = np.divmod(used, n)
-        parent = (i // 2) * (n // 2) + j // 2
-        # child centre - parent centre, in parent cell sizes: (+-1 +- 1j) / 4
-        delta = ((i % 2) - 0.5) / 2 + 1j * ((j % 2) - 0.5) / 2
-        Q, a = charge[used], moments[:, used]
-        new = np.zeros((MULTIPOLE_ORDER, used.size), dtype=complex)
-        powers = [np.ones_like(delta)]
-        for _ in range(MULTIPOLE_ORDER):
-            powers.append(powers[-1] * delta)
-        for l in range(1, MULTIPOLE_ORDER + 1):
-            term = Q * powers[l] / l
-            for k in range(1, l + 1):
-                term = term + a[k - 1] * (0.5 ** k * comb(l - 1, k - 1)) * powers[l - k]
-            new[l - 1] = term
-        count = (n // 2) ** 2
-        parent_charge = np.bincount(parent, Q, count)
-        parent_moments = np.zeros((MULTIPOLE_ORDER, count), dtype=complex)
-        for k in range(MULTIPOLE_ORDER):
-            parent_moments[k] = np.bincount(parent, new[k].real, count) + 1j * np.bincount(parent, new[k].imag, count)
-        return parent_charge, parent_moments
+        parent = (i // 2) * half + j // 2
+        position = 2 * (i % 2) + j % 2
+        parent_moments = np.zeros((MULTIPOLE_ORDER, half * half), dtype=complex)
+        for a in (0, 1):
+            for b in (0, 1):
+                mine = position == 2 * a + b
+                shift, from_charge = _child_shift((a - 0.5) / 2 + 1j * (b - 0.5) / 2, MULTIPOLE_ORDER)
+                parent_moments[:, parent[mine]] += (shift @ moments[:, used[mine]]
+                                                    + from_charge[:, None] * charge[used[mine]][None, :])
+        return charge.reshape(half, 2, half, 2).sum(axis=(1, 3)).ravel(), parent_moments
 
     def potential(self) -> np.ndarray:
         """V at the probes (up to a constant), volts."""
@@ -193,3 +194,15 @@ class LogPotentialSum:
             if level > 2:
                 charge, moments = self._to_parent(level, charge, moments)
         return total / (2 * np.pi * epsilon_0)
+
+
+@lru_cache(maxsize=16)
+def _child_shift(delta: complex, order: int) -> tuple[np.ndarray, np.ndarray]:
+    """The expansion of ln about a centre moved by ``delta`` parent sizes, for a child half the parent's size:
+    new[l] = Q delta^l / l + sum over k <= l of a[k] 0.5^k C(l - 1, k - 1) delta^(l - k), as (matrix on a,
+    vector on Q), l and k from 1."""
+    shift = np.zeros((order, order), dtype=complex)
+    for l in range(1, order + 1):  # a small fixed matrix, not a loop over cells
+        for k in range(1, l + 1):
+            shift[l - 1, k - 1] = 0.5 ** k * comb(l - 1, k - 1) * delta ** (l - k)
+    return shift, np.array([delta ** l / l for l in range(1, order + 1)])

@@ -28,7 +28,7 @@ from .hotspots import HotspotResult, find_hotspots
 from .local_refinement import refined_raw
 from .mesh import SectionMesh, add_open_space, build_section_mesh, find_open_circle
 from .problem import AssembledProblem, assemble
-from .recovery import Recovery, recover_field
+from .recovery import Projector, Recovery, projector, recover_field, refinement_indicator
 from .singularity import corner_theory
 from .solve import Solution, solve
 
@@ -86,6 +86,7 @@ class _Pass(_Computed):
 
     record: PassRecord
     raw: RawMesh | None = None  # the mesh as meshed or refined, before open space: the next pass refines it
+    projector: Projector | None = None  # the recovery's projection on this mesh, for the next pass's indicator
 
 
 def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> SectionResult:
@@ -113,7 +114,8 @@ def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> Sectio
 
     def refine(source: _Pass) -> RawMesh:
         def work() -> RawMesh:
-            wanted = wanted_element_sizes(source.section, source.recovery.refinement_indicator,
+            indicator = refinement_indicator(source.solution, source.projector)
+            wanted = wanted_element_sizes(source.section, indicator,
                                           case.mesh.element_order, growth)
             return refined_raw(source.raw, wanted[:len(source.raw.triangles)], case.mesh.curved)
         return stage("refine", work)
@@ -188,7 +190,8 @@ def _one_pass(case: Case, refined: RawMesh | None, stage) -> _Pass:
         return _Pass(section, problem, None, None, None, None, None, None, None, own)  # over budget: not solved
     solution = stage("solve", lambda: solve(problem, case.solver))
     fields = stage("fields", lambda: element_fields(solution))
-    recovery = stage("recovery", lambda: recover_field(solution, case.refinement.adaptive, fields))
+    project = stage("recovery", partial(projector, solution))
+    recovery = stage("recovery", lambda: recover_field(solution, fields, project))
     charges = stage("charges", lambda: compute_charges(solution, fields))
     capacitance = stage("capacitance", lambda: compute_capacitance(solution, fields, charges))
     peak_search_field = recovery.peak_search_field(fields.E_magnitude, problem.element_order)
@@ -197,7 +200,8 @@ def _one_pass(case: Case, refined: RawMesh | None, stage) -> _Pass:
                         capacitance.energy_per_length, recovery.estimated_error,
                         {name: float(v.values.max()) for name, v in vertex_fields.items()}, vertex_fields,
                         time.perf_counter() - start)
-    return _Pass(section, problem, solution, fields, charges, capacitance, recovery, peak_search_field, record, own)
+    return _Pass(section, problem, solution, fields, charges, capacitance, recovery, peak_search_field, record, own,
+                 project if case.refinement.adaptive else None)
 
 
 def _settled(case: Case, passes: list[_Pass]) -> tuple[bool, tuple[HotspotResult, Certificates] | None]:

@@ -36,8 +36,9 @@ from .problem import AssembledProblem, conductor_indicator, dof_location
 
 log = logging.getLogger(__name__)
 
-#: unknowns up to which "auto" uses SuperLU (PARDISO's set-up costs more on small systems)
-SMALL_SYSTEM = 50_000
+#: unknowns up to which "auto" uses SuperLU (PARDISO's set-up, ~25 ms, costs more on tiny systems; measured
+#: on the benchmark busbar: PARDISO 0.03 s vs SuperLU 0.05 s at 9e3 unknowns, 0.19 vs 0.36 s at 4e4)
+SMALL_SYSTEM = 5_000
 #: unknowns above which "auto" prefers AMG-CG to SuperLU (when PARDISO is not installed)
 ITERATIVE_ABOVE = 200_000
 #: relative residual ||b - A x|| / ||b|| at which CG stops

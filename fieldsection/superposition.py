@@ -130,7 +130,8 @@ def _curved_edge_quadrature(solution: Solution, elements: np.ndarray) -> list[tu
     ref = np.hstack([start[:, None] + direction[:, None] * _GS[None, :] for start, direction in zip(starts, directions)])
     basis = Basis(mesh, problem.basis.elem, quadrature=(ref, np.tile(_GW, 3)), elements=elements)
     grad = gradient_at_points(basis, solution.potential)  # (2, n, 3q)
-    V = np.asarray(basis.interpolate(solution.potential))  # (n, 3q)
+    dofs = basis.element_dofs  # V at the points: the sum ``basis.interpolate`` does, without its derivatives
+    V = sum(solution.potential[dofs[i]][:, None] * np.asarray(basis.basis[i][0]) for i in range(basis.Nbfun))  # (n, 3q)
     x = basis.mapping.F(ref, tind=elements)  # (2, n, 3q)
     jacobian = basis.mapping.DF(ref, tind=elements)
     centroid = basis.mapping.F(np.array([[1 / 3], [1 / 3]]), tind=elements)[:, :, 0]

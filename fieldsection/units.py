@@ -1,7 +1,7 @@
 """Quantities with units at the edges; SI floats inside.
 
 Case files may write "12 kV", "0.2 mm" or "20 kV/mm"; a bare number is taken as SI.
-Parsing is delegated to pint; its registry is built lazily because it costs ~1 s.
+Parsing is delegated to pint; its registry is built lazily, from pint's disk cache of its parsed definitions.
 """
 
 from __future__ import annotations
@@ -32,7 +32,12 @@ SI_UNITS = {
 def _registry():
     import pint
 
-    return pint.UnitRegistry()
+    # pint parses its definitions file on every start (~0.4 s, a third of a small model's run) unless it may keep
+    # the parsed result in the user's cache folder; where that folder cannot be used, the plain registry
+    try:
+        return pint.UnitRegistry(cache_folder=":auto:")
+    except Exception:  # noqa: BLE001 - an unwritable or damaged cache must never stop a run
+        return pint.UnitRegistry()
 
 
 def to_si(value: Any, kind: str, what: str) -> float:

@@ -59,8 +59,8 @@ def test_recovery_from_the_element_fields_equals_recovery_from_the_potential():
     result = solve_script("coaxial_two_layer.geo", {"inner_layer": Material("a", 2.0, 20e6),
                                                     "outer_layer": Material("b", 5.0, 20e6)},
                           {"inner": 1000.0, "outer": 0.0}, order=1, curved=False)
-    given = recover_field(result.solution, False, result.fields)
-    own = recover_field(result.solution, False)
+    given = recover_field(result.solution, result.fields)
+    own = recover_field(result.solution)
     np.testing.assert_allclose(given.E, own.E, rtol=1e-12, atol=1e-12 * abs(own.E).max())
     np.testing.assert_allclose(given.indicator, own.indicator, rtol=1e-9, atol=1e-12 * own.indicator.max())
     assert own.indicator.max() > 0

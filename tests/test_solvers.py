@@ -82,7 +82,8 @@ def test_cg_that_does_not_converge_raises(monkeypatch):
 
 
 def test_auto_chooses_by_size():
-    assert solver_chain("auto", 10_000) == ("SuperLU",)
+    assert solver_chain("auto", 3_000) == ("SuperLU",)
+    assert solver_chain("auto", 10_000)[0] == "PARDISO"
     assert solver_chain("auto", 100_000)[0] == "PARDISO"
     assert solver_chain("auto", 2_000_000)[:2] == ("PARDISO", "AMG-CG")
 
