@@ -43,6 +43,20 @@ class LogPotentialSum:
         self.moments = np.zeros((MULTIPOLE_ORDER, n * n), dtype=complex)
         self.count = 0
 
+    def state(self) -> tuple:
+        """The sums so far, for ``absorb`` by a sum over other sources with the same probes and cells."""
+        return self.depth, self.direct, self.charge, self.moments, self.count
+
+    def absorb(self, state: tuple) -> None:
+        """Add the sums of another ``LogPotentialSum`` (its ``state()``) built on the same probes and sources' layout."""
+        depth, direct, charge, moments, count = state
+        if depth != self.depth or direct.shape != self.direct.shape:
+            raise ValueError("the sums absorbed were built on other probes or another quadtree")
+        self.direct += direct
+        self.charge += charge
+        self.moments += moments
+        self.count += count
+
     def _cheapest_depth(self, where: np.ndarray, weight: float) -> int:
         """The finest level (2 .. 9) with the least estimated work: direct pairs of the probes' neighbourhoods
         (from where the sources will lie) against the expansions' work, ~ 4^level cells x order^2."""

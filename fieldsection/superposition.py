@@ -49,6 +49,7 @@ from skfem import Basis
 from skfem.quadrature import get_quadrature
 
 from .fields import _EDGES, _VERTICES, _is_linear, _linear_gradient, gradient_at_points
+from .forked import helper_call
 from .mesh import EXTERIOR, linear_gradients_and_areas
 from .multipole import LogPotentialSum
 from .solve import Solution
@@ -62,6 +63,10 @@ LINE_PROBES = 300
 FACE_CLEARANCE = 3.0
 #: elements per chunk of the source loop (bounds the memory of the quadrature arrays)
 CHUNK = 100_000
+#: source elements from which a helper process sums half of the sources (below, the fork and the transfer of its
+#: sums cost more than they save)
+HELPER_ABOVE = 20_000
+HELPER_BLOCK = 256
 
 _GS, _GW = np.polynomial.legendre.leggauss(EDGE_POINTS)
 _GS, _GW = 0.5 * (_GS + 1.0), 0.5 * _GW  # on [0, 1]
@@ -479,11 +484,32 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
             summation.add(*mirror.images(w, q, m))
 
     sides = _sides(problem, mirror)
-    flux = np.zeros(len(problem.conductors))
-    for first in range(0, sources.size, CHUNK):  # chunks of elements, not a loop over them
-        (charge_w, charge_q), (layer_w, layer_m) = _sources(solution, bound_sign, sources[first:first + CHUNK], sides, flux)
-        add(charge_w, charge_q)
-        add(layer_w, None, layer_m)
+
+    def add_elements(elements: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The sources of ``elements`` added in; (D.n flux per conductor, the sums' state)."""
+        flux = np.zeros(len(problem.conductors))
+        for first in range(0, elements.size, CHUNK):  # chunks of elements, not a loop over them
+            (charge_w, charge_q), (layer_w, layer_m) = _sources(solution, bound_sign, elements[first:first + CHUNK],
+                                                                sides, flux)
+            add(charge_w, charge_q)
+            add(layer_w, None, layer_m)
+        return flux, summation.state()
+
+    # on a large mesh a helper process sums the first half of the elements' sources meanwhile (its sums are added
+    # to these); without one, or if it fails, this process sums them too
+    if sources.size >= HELPER_ABOVE:  # alternate blocks of elements: each half spread over the whole section
+        block = (np.arange(sources.size) // HELPER_BLOCK) % 2 == 0
+        halves = [sources[block], sources[~block]]
+    else:
+        halves = [sources[:0], sources]
+    helper = helper_call(add_elements, halves[0]) if halves[0].size else None
+    flux = add_elements(halves[1])[0]
+    shared = helper.result() if helper is not None else None
+    if shared is not None:
+        flux += shared[0]
+        summation.absorb(shared[1])
+    elif halves[0].size:
+        flux += add_elements(halves[0])[0]
     reaction = problem.stiffness @ solution.potential
     free = np.zeros(len(problem.conductors))
     for k, conductor in enumerate(problem.conductors):  # the electrodes' free charge at their DOFs
