@@ -3,13 +3,16 @@
 
 matplotlib's import alone takes about half a second, and the figures of a model together about as long as the
 superposition check, the VTK file and the HTML: the report stage draws them meanwhile, on another core.
-``start_drawing(first, then)`` runs ``first()`` at once; ``Drawing.give(*args)`` hands ``args`` over (the
-superposition check and the probe samples, known only later) for ``then(*args)``, run after ``first``;
-``Drawing.finish()`` waits and returns both results concatenated (lists of what was drawn). Errors of either are
+
+``start_drawing(jobs, then)`` starts drawing ``jobs`` (each draws one or more figures and returns what it drew), in
+order, at once. ``Drawing.give(*args)`` hands ``args`` over (the superposition check and the probe samples, known
+only later) for ``then(*args)``. ``Drawing.finish()`` waits and returns everything drawn, in the order of the jobs
+and then ``then``'s. On a small model the child is still drawing when the report's own work is done: ``finish``
+then draws what is left here too, the last jobs first while the child takes the next ones (a shared counter hands
+each job to one process), and ``then`` here if the child was busy when it was given. Errors of either process are
 raised by ``finish``; ``stop`` ends the drawing early (the report failed). The child inherits the analysis when it
 is forked (nothing is copied) and returns only the list of files; it ignores Ctrl-C (the parent stops it) and dies
-with its parent. Arguments of ``give`` that cannot be pickled stay here: ``then`` runs in this process after the
-child's ``first``.
+with its parent. Arguments of ``give`` that cannot be pickled stay here: ``then`` runs in this process.
 """
 
 from __future__ import annotations
@@ -23,11 +26,13 @@ import threading
 import warnings
 from abc import ABC, abstractmethod
 from concurrent.futures import Future, ThreadPoolExecutor
-from typing import Any, Callable
+from typing import Any, Callable, Sequence
 
 from .errors import ReportError
+from .forked import die_with_parent, hold_forks_for, wait_for_background_threads
 
-Drawn = list  # what ``first`` and ``then`` return: (file, caption) pairs
+Drawn = list  # what a job and ``then`` return: (file, caption) pairs
+Job = Callable[[], Drawn]
 
 
 class Drawing(ABC):
@@ -39,25 +44,27 @@ class Drawing(ABC):
 
     @abstractmethod
     def finish(self) -> Drawn:
-        """Wait; what ``first`` and ``then`` drew, or their error."""
+        """Wait (drawing here what the child has not started yet); what the jobs and ``then`` drew, or their error."""
 
     @abstractmethod
     def stop(self) -> None:
         """End the drawing early (the report failed)."""
 
 
-_warming: threading.Thread | None = None
-
-
 def warm_up() -> None:
     """Import matplotlib and the figure modules in a background thread, now: for a process that draws a report's
     figures later and little else (a command-line run). The half second of the import then overlaps the analysis,
     much of which waits for gmsh's child process or runs in compiled code. It leaves out matplotlib's 3D toolkit,
-    as the drawing process does."""
-    global _warming
-    if _warming is None:
-        _warming = threading.Thread(target=_import_figures, name="fieldsection-figures-import", daemon=True)
-        _warming.start()
+    as the drawing process does. Every fork waits for it first (``forked.hold_forks_for``)."""
+    global _warmed
+    if not _warmed:
+        _warmed = True
+        thread = threading.Thread(target=_import_figures, name="fieldsection-figures-import", daemon=True)
+        thread.start()
+        hold_forks_for(thread)
+
+
+_warmed = False
 
 
 def _import_figures() -> None:
@@ -69,24 +76,25 @@ def _import_figures() -> None:
         pass
 
 
-def start_drawing(first: Callable[[], Drawn], then: Callable[..., Drawn]) -> Drawing:
-    """Start ``first()`` in a forked child (Linux) or a thread; ``give(*args)`` adds ``then(*args)``."""
-    if _warming is not None:
-        _warming.join()  # never fork while that thread may hold the import lock
+def start_drawing(jobs: Sequence[Job], then: Callable[..., Drawn]) -> Drawing:
+    """Start drawing ``jobs`` in a forked child (Linux) or a thread; ``give(*args)`` adds ``then(*args)``."""
+    wait_for_background_threads()  # never fork while a thread may hold the import lock
     if sys.platform == "linux" and not multiprocessing.current_process().daemon:
-        return _Child(first, then)
-    return _Thread(first, then)  # (a daemonic process may not have children)
+        return _Child(list(jobs), then)
+    return _Thread(list(jobs), then)  # (a daemonic process may not have children)
 
 
 class _Thread(Drawing):
-    def __init__(self, first, then):
+    """All of it in one thread: matplotlib draws one figure at a time in a process."""
+
+    def __init__(self, jobs, then):
         self._args: list = []
         self._given, self._stopped = threading.Event(), False
         self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="fieldsection-figures")
-        self._future: Future = self._pool.submit(self._run, first, then)
+        self._future: Future = self._pool.submit(self._run, jobs, then)
 
-    def _run(self, first, then) -> Drawn:
-        drawn = first()
+    def _run(self, jobs, then) -> Drawn:
+        drawn = [item for job in jobs for item in job()]
         self._given.wait()
         return drawn if self._stopped else drawn + then(*self._args)
 
@@ -106,12 +114,37 @@ class _Thread(Drawing):
         self._pool.shutdown(wait=True)  # (a figure half drawn is finished: the staging folder goes after this)
 
 
+class _Queue:
+    """The jobs not yet taken, shared by the two processes: the child takes them from the front, the parent from
+    the back."""
+
+    def __init__(self, context, count: int):
+        self._ends = context.RawArray("i", [0, count])  # [next from the front, one past the last left]
+        self._lock = context.Lock()
+
+    def take(self, front: bool) -> int | None:
+        with self._lock:
+            first, end = self._ends
+            if first >= end:
+                return None
+            if front:
+                self._ends[0] = first + 1
+                return first
+            self._ends[1] = end - 1
+            return end - 1
+
+    def empty(self) -> bool:
+        with self._lock:
+            return self._ends[0] >= self._ends[1]
+
+
 class _Child(Drawing):
-    def __init__(self, first, then):
+    def __init__(self, jobs, then):
         context = multiprocessing.get_context("fork")
-        self._then, self._here = then, None
+        self._jobs, self._then, self._here = jobs, then, None
+        self._queue = _Queue(context, len(jobs))
         self._parent, child_end = context.Pipe()
-        self._child = context.Process(target=_child, args=(child_end, first, then), daemon=True,
+        self._child = context.Process(target=_child, args=(child_end, jobs, self._queue, then), daemon=True,
                                       name="fieldsection-figures")
         gc.freeze()  # the child's collections leave the inherited objects alone: their pages stay shared
         try:
@@ -121,11 +154,16 @@ class _Child(Drawing):
         child_end.close()
 
     def give(self, *args) -> None:
-        try:
-            self._parent.send(args)
-        except OSError:  # the child has already ended (an error of ``first``, sent before): ``finish`` reads it
-            pass
-        except Exception:  # ``args`` cannot be pickled: ``then`` runs here, after the child's ``first``
+        # a child still busy with the jobs leaves ``then`` to this process, which is then done with its own work
+        keep = not self._queue.empty()
+        if not keep:
+            try:
+                self._parent.send(args)
+            except OSError:  # the child has already ended (an error of a job, sent before): ``finish`` reads it
+                return
+            except Exception:  # ``args`` cannot be pickled: ``then`` runs here
+                keep = True
+        if keep:
             self._here = args
             try:
                 self._parent.send(None)
@@ -133,20 +171,27 @@ class _Child(Drawing):
                 pass
 
     def finish(self) -> Drawn:
+        mine: dict[int, Drawn] = {}
         try:
-            status, payload = self._parent.recv()
-        except EOFError:
-            self._child.join()
-            code = self._child.exitcode
-            cause = f"killed by signal {-code}" if code is not None and code < 0 else f"exit code {code}"
-            raise ReportError(f"the process drawing the figures stopped unexpectedly ({cause}); run again, or "
-                              "with --no-figures") from None
+            while (index := self._queue.take(front=False)) is not None:  # what the child has not started: drawn here
+                mine[index] = self._jobs[index]()
+            then_here = self._then(*self._here) if self._here is not None else []
+            try:
+                status, payload = self._parent.recv()
+            except EOFError:
+                self._child.join()
+                code = self._child.exitcode
+                cause = f"killed by signal {-code}" if code is not None and code < 0 else f"exit code {code}"
+                raise ReportError(f"the process drawing the figures stopped unexpectedly ({cause}); run again, or "
+                                  "with --no-figures") from None
         finally:
             self._child.join(timeout=2.0)  # (it has sent all it had; it is ending)
             self.stop()
         if status == "error":
             raise payload
-        return payload if self._here is None else payload + self._then(*self._here)
+        theirs, then_there = payload
+        drawn = {**theirs, **mine}
+        return [item for index in sorted(drawn) for item in drawn[index]] + then_there + then_here
 
     def stop(self) -> None:
         if self._child.is_alive():
@@ -155,14 +200,9 @@ class _Child(Drawing):
         self._parent.close()
 
 
-def _child(connection, first, then) -> None:
+def _child(connection, jobs, queue: _Queue, then) -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle: it stops this child
-    try:  # and die with the parent, even by SIGKILL
-        import ctypes
-
-        ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # 1: PR_SET_PDEATHSIG
-    except (OSError, AttributeError):
-        pass
+    die_with_parent(multiprocessing.parent_process().pid)
     _without_3d_toolkit()
     given: list = []
 
@@ -175,9 +215,11 @@ def _child(connection, first, then) -> None:
     reader = threading.Thread(target=receive, daemon=True)
     reader.start()
     try:
-        drawn = first()
+        drawn = {}
+        while (index := queue.take(front=True)) is not None:
+            drawn[index] = jobs[index]()
         reader.join()
-        answer = None if not given else ("ok", drawn if given[0] is None else drawn + then(*given[0]))
+        answer = None if not given else ("ok", (drawn, [] if given[0] is None else then(*given[0])))
     except BaseException as exc:
         answer = ("error", exc if _picklable(exc) else ReportError(f"drawing the figures failed: "
                                                                    f"{type(exc).__name__}: {exc}"))

@@ -25,6 +25,7 @@ import numpy as np
 
 from .case import MAX_REFINEMENTS, BuilderGeometry, MeshSettings, ScriptGeometry
 from .errors import GeometryError, MeshError
+from .forked import die_with_parent
 from .geometry import screen_script
 from .mesh_budget import CurveSizing, NodeEstimate, SurfaceSizing, default_node_limit, estimate_nodes, refuse_if_too_big
 from .limits import anonymous_memory, current_gmsh_limits, machine_memory
@@ -213,7 +214,7 @@ def _fork_child(receiver, sender, work, args) -> int:
 
     A plain fork rather than ``multiprocessing.Process``, which refuses to start from a daemonic
     process (a Dask worker, a process pool's worker); the child needs none of its bookkeeping: the
-    parent always reaps it (``_reap``), and the child dies with its parent (``_die_with_parent``).
+    parent always reaps it (``_reap``), and the child dies with its parent (``forked.die_with_parent``).
     """
     parent = os.getpid()
     pid = os.fork()
@@ -233,21 +234,9 @@ def _reap(pid: int) -> int:
     return os.waitstatus_to_exitcode(os.waitpid(pid, 0)[1])
 
 
-def _die_with_parent(parent: int) -> None:
-    """Ask Linux to kill this child when its parent dies (even by SIGKILL, which leaves the parent no say)."""
-    try:
-        import ctypes
-
-        ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # 1: PR_SET_PDEATHSIG
-    except (OSError, AttributeError):
-        pass
-    if os.getppid() != parent:  # the parent died before the request was made
-        os._exit(1)
-
-
 def _child(sender, work, args, parent: int) -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle: it stops this child
-    _die_with_parent(parent)
+    die_with_parent(parent)
     try:
         sender.send(("ok", work(*args)))
     except (GeometryError, MeshError) as exc:

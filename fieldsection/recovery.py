@@ -63,9 +63,13 @@ class Recovery:
 
 #: relative residual at which the projection's conjugate gradients stop, and the iterations allowed
 PROJECTION_TOLERANCE, PROJECTION_MAX_ITERATIONS = 1e-10, 2000
+#: the same for the unit solutions' fields of the refinement indicator, which only sets the next mesh's sizes (to
+#: a few per cent): about half the iterations
+INDICATOR_TOLERANCE = 1e-6
 
 
-def conjugate_gradients(matrix: sp.spmatrix, rhs: np.ndarray, inverse_diagonal: np.ndarray) -> np.ndarray:
+def conjugate_gradients(matrix: sp.spmatrix, rhs: np.ndarray, inverse_diagonal: np.ndarray,
+                        tolerance: float = PROJECTION_TOLERANCE) -> np.ndarray:
     """Solves ``matrix @ x = rhs`` (rhs (n, k), k columns at once) for a symmetric positive definite mass
     matrix by Jacobi-preconditioned conjugate gradients (as plain CG on the symmetrically scaled matrix).
 
@@ -79,7 +83,7 @@ def conjugate_gradients(matrix: sp.spmatrix, rhs: np.ndarray, inverse_diagonal: 
     y = np.zeros_like(r)
     p = r.copy()
     rr = np.einsum("ij,ij->j", r, r)
-    stop = (PROJECTION_TOLERANCE ** 2) * rr
+    stop = (tolerance ** 2) * rr
     for _ in range(PROJECTION_MAX_ITERATIONS):
         if (rr <= stop).all():
             return scale[:, None] * y
@@ -137,13 +141,13 @@ class _Projector:
         E_h[:, ~self.problem.dielectric] = 0.0
         return E_h
 
-    def project(self, E_h: np.ndarray) -> np.ndarray:
+    def project(self, E_h: np.ndarray, tolerance: float = PROJECTION_TOLERANCE) -> np.ndarray:
         """Coefficients (c, glued DOFs) of the recovered field, for fields (c, nelements, nqp) of any count c
-        of components."""
+        of components; ``tolerance``: the relative residual of the projection's solve."""
         element_loads = np.einsum("cnq,nq,jq->cjn", E_h, self.dx, self.phi, optimize=True)  # as ``glued``
         loads = np.stack([np.bincount(self.glued.ravel(), weights=load.ravel(), minlength=self.size)
                           for load in element_loads], axis=1)
-        return conjugate_gradients(self._mass, loads, self._inverse_diagonal).T
+        return conjugate_gradients(self._mass, loads, self._inverse_diagonal, tolerance).T
 
     def vertex_values(self, coefficients: np.ndarray) -> np.ndarray:
         """E* at element vertices (nelements, 3, 2); Lagrange elements number their vertex DOFs first."""
@@ -193,7 +197,8 @@ class _LinearProjector:
         E_h[:, ~self.problem.dielectric] = 0.0
         return E_h
 
-    def project(self, E_h: np.ndarray) -> np.ndarray:
+    def project(self, E_h: np.ndarray, tolerance: float = PROJECTION_TOLERANCE) -> np.ndarray:
+        """As ``_Projector.project``; exact here (``tolerance`` has nothing to stop)."""
         return np.array([np.bincount(self.glued.ravel(), weights=np.tile(self.area * c, 3),
                                      minlength=self.weight.size) / self.weight for c in E_h])
 
@@ -257,7 +262,7 @@ def refinement_indicator(solution: Solution, project: Projector | None = None) -
         return combined
     fields_of_units = [project.field(unit) for unit in units]  # (2, ...) each
     # every unit's two components projected together: the projection's iterations share their products
-    every = project.project(np.concatenate(fields_of_units))
+    every = project.project(np.concatenate(fields_of_units), INDICATOR_TOLERANCE)
     for k, (unit, E_h) in enumerate(zip(units, fields_of_units)):
         unit_norm = float(unit @ (problem.stiffness @ unit))
         if unit_norm > 0:

@@ -11,6 +11,7 @@ import json
 import math
 import os
 import shutil
+import sys
 import tempfile
 from contextlib import contextmanager
 from functools import lru_cache, partial
@@ -121,8 +122,8 @@ def write_report(
     with built_whole(reports_dir, result.case.name, "the report") as staging:
         # the figures are drawn meanwhile, by a child process (``figures_worker``): matplotlib's import and the
         # maps take about as long as the superposition check, the VTK file and the page's template
-        drawing = (start_drawing(partial(_draw_model_figures, result, staging),
-                                 partial(_draw_check_figures, result, staging)) if with_figures else None)
+        drawing = (start_drawing(_model_figure_jobs(result, staging), partial(_draw_check_figures, result, staging))
+                   if with_figures else None)
         try:
             if on_step:
                 on_step("results")
@@ -149,6 +150,7 @@ def write_report(
         finally:
             if drawing is not None:
                 drawing.stop()  # (after an error: the staging folder is removed next)
+                _forget_binnings()
         figure_list: list[dict[str, str]] = []
         for name, caption in drawn:
             # embedded, so that report.html alone shows every figure; the PNG files stay beside it
@@ -159,28 +161,44 @@ def write_report(
     return target
 
 
-def _draw_model_figures(result: SectionResult, staging: Path) -> list[tuple[str, str]]:
-    """Draw the figures of the analysis itself into ``staging``; return their (file, caption) in report order."""
-    from . import figures as fig  # matplotlib is slow to import: only when drawing (and in the drawing process)
+def _model_figure_jobs(result: SectionResult, staging: Path) -> list[Callable[[], list[tuple[str, str]]]]:
+    """The figures of the analysis itself, in report order: one job each, drawing into ``staging`` and returning its
+    (file, caption)."""
+    def job(name: str, caption: str, draw: Callable[[Path], object]) -> Callable[[], list[tuple[str, str]]]:
+        def run() -> list[tuple[str, str]]:
+            draw(staging / name)
+            return [(name, caption)]
+        return run
+
+    def figures():
+        from . import figures as fig  # matplotlib is slow to import: only when drawing (and in the drawing process)
+        return fig
 
     magnitude = result.peak_search_field  # as the hotspots were found on it
     plots = [
-        ("regions.png", "Regions, materials, electrodes and mesh", lambda p: fig.plot_regions(result.problem, p)),
-        ("potential.png", "Potential", lambda p: fig.plot_potential(result.solution, p)),
+        ("regions.png", "Regions, materials, electrodes and mesh", lambda p: figures().plot_regions(result.problem, p)),
+        ("potential.png", "Potential", lambda p: figures().plot_potential(result.solution, p)),
         ("field.png", "|E| per element with hotspot regions outlined",
-         lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p, magnitude=magnitude)),
+         lambda p: figures().plot_field(result.problem, result.fields, result.hotspots, p, magnitude=magnitude)),
         ("field_detail.png", "|E| close to the highest-ranked hotspot (or the highest field)",
-         lambda p: fig.plot_field(result.problem, result.fields, result.hotspots, p, detail=True, magnitude=magnitude)),
+         lambda p: figures().plot_field(result.problem, result.fields, result.hotspots, p, detail=True,
+                                        magnitude=magnitude)),
         ("bound_charge.png", "Bound surface charge density on material faces",
-         lambda p: fig.plot_bound_charge(result.problem, result.charges, p)),
+         lambda p: figures().plot_bound_charge(result.problem, result.charges, p)),
     ]
     if result.conduction is not None:  # the DC or AC analysis's |E| and loss density
         from .analysis_report import analysis_figures
 
         plots += analysis_figures(result)
-    for name, _, draw in plots:
-        draw(staging / name)
-    return [(name, caption) for name, caption, _ in plots]
+    return [job(*plot) for plot in plots]
+
+
+def _forget_binnings() -> None:
+    """The figures of this model are drawn: its pixel binnings (kept by the figure module, if it was loaded here)
+    can go."""
+    figures = sys.modules.get("fieldsection.figures")
+    if figures is not None:
+        figures.forget_binnings()
 
 
 def _draw_check_figures(result: SectionResult, staging: Path, superposition, probes) -> list[tuple[str, str]]:
@@ -197,13 +215,8 @@ def _draw_check_figures(result: SectionResult, staging: Path, superposition, pro
 
         plots += [(figure_name(p.line), f"Probe line {p.line.name}: V, |E| and share of strength along it",
                    lambda path, p=p: plot_probe(p, path, result.case.hotspot_fraction)) for p in probes]
-    try:
-        for name, _, draw in plots:
-            draw(staging / name)
-    finally:
-        from .figures import forget_binnings
-
-        forget_binnings()  # the figures of this model are drawn: its pixel binnings can go
+    for name, _, draw in plots:
+        draw(staging / name)
     return [(name, caption) for name, caption, _ in plots]
 
 

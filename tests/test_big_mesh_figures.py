@@ -12,6 +12,8 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
+import time
+from functools import partial
 
 import numpy as np
 import pytest
@@ -98,6 +100,11 @@ def _first():
     return [("a.png", f"drawn by {os.getpid()}")]
 
 
+def _slow(k):
+    time.sleep(0.2)
+    return [(f"{k}.png", f"drawn by {os.getpid()}")]
+
+
 def _failing_first():
     raise ReportError("cannot write the figure 'a.png': no room; check that its folder exists and is writable")
 
@@ -111,23 +118,30 @@ def _then(word):
 @pytest.mark.parametrize("platform", ["linux", "other"])
 def test_drawing_beside_the_report_returns_its_files_or_raises_its_error(platform, monkeypatch):
     monkeypatch.setattr("sys.platform", platform)  # "other": in a thread, as where the platform cannot fork
-    drawing = start_drawing(_first, _then)
+    drawing = start_drawing([_first], _then)
     drawing.give("then")
     drawn = drawing.finish()
     assert [name for name, _ in drawn] == ["a.png", "b.png"]
-    assert (drawn[0][1] != f"drawn by {os.getpid()}") == (platform == "linux")  # a child process on Linux
-    failing = start_drawing(_first, _then)
+    # several slow jobs: on Linux the child takes them from the front while this process, its own work done,
+    # takes them from the back; in a thread (elsewhere) all of them in this process; report order either way
+    shared = start_drawing([partial(_slow, k) for k in range(6)], _then)
+    shared.give("then")
+    drawn = shared.finish()
+    assert [name for name, _ in drawn] == [f"{k}.png" for k in range(6)] + ["b.png"]
+    here = {caption == f"drawn by {os.getpid()}" for _, caption in drawn[:6]}
+    assert here == ({True, False} if platform == "linux" else {True})
+    failing = start_drawing([_first], _then)
     failing.give("fail")
     with pytest.raises(ReportError, match="no room"):
         failing.finish()
-    failing_first = start_drawing(_failing_first, _then)
+    failing_first = start_drawing([_failing_first], _then)
     failing_first.give("then")
     with pytest.raises(ReportError, match="'a.png': no room"):
         failing_first.finish()
-    unpicklable = start_drawing(_first, lambda word: [("c.png", word())])
+    unpicklable = start_drawing([_first], lambda word: [("c.png", word())])
     unpicklable.give(lambda: "made here")  # (a lambda cannot go to a child process: ``then`` runs in this one)
     assert unpicklable.finish()[-1] == ("c.png", "made here")
-    stopped = start_drawing(_first, _then)
+    stopped = start_drawing([_first], _then)
     stopped.stop()  # (the report failed first): nothing is left running
 
 
@@ -163,7 +177,7 @@ def test_figure_modules_imported_beside_the_analysis_before_the_drawing_forks():
               "from fieldsection.figures_worker import start_drawing, warm_up\n"
               "assert 'matplotlib' not in sys.modules\n"
               "warm_up()\n"
-              "drawing = start_drawing(lambda: [('first', sys.modules.get('fieldsection.figures') is not None)],\n"
+              "drawing = start_drawing([lambda: [('first', sys.modules.get('fieldsection.figures') is not None)]],\n"
               "                        lambda: [])\n"
               "drawing.give()\n"
               "print(drawing.finish())\n")
