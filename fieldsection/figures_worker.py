@@ -70,7 +70,7 @@ _warmed = False
 def _import_figures() -> None:
     try:
         _without_3d_toolkit()
-        for name in ("fieldsection.figures", "fieldsection.figures_superposition", "fieldsection.figures_probes"):
+        for name in _FIGURE_MODULES:
             importlib.import_module(name)
     except Exception:  # noqa: BLE001 - the drawing imports them again and reports what fails
         pass
@@ -114,6 +114,14 @@ class _Thread(Drawing):
         self._pool.shutdown(wait=True)  # (a figure half drawn is finished: the staging folder goes after this)
 
 
+_FIGURE_MODULES = ("fieldsection.figures", "fieldsection.figures_superposition", "fieldsection.figures_probes")
+
+
+def _can_help() -> bool:
+    """Whether this process draws some of the figures too: only with the figure modules loaded (``warm_up``)."""
+    return all(name in sys.modules for name in _FIGURE_MODULES)
+
+
 class _Queue:
     """The jobs not yet taken, shared by the two processes: the child takes them from the front, the parent from
     the back."""
@@ -155,7 +163,8 @@ class _Child(Drawing):
 
     def give(self, *args) -> None:
         # a child still busy with the jobs leaves ``then`` to this process, which is then done with its own work
-        keep = not self._queue.empty()
+        # (if the figure modules are loaded here already: their import would cost more than the child's wait)
+        keep = _can_help() and not self._queue.empty()
         if not keep:
             try:
                 self._parent.send(args)
@@ -172,10 +181,13 @@ class _Child(Drawing):
 
     def finish(self) -> Drawn:
         mine: dict[int, Drawn] = {}
+        then_here: Drawn = []
+        gc.freeze()  # matplotlib makes many small objects: its collections leave the analysis's many alone
         try:
-            while (index := self._queue.take(front=False)) is not None:  # what the child has not started: drawn here
+            if self._here is not None:
+                then_here = self._then(*self._here)
+            while _can_help() and (index := self._queue.take(front=False)) is not None:  # not started by the child
                 mine[index] = self._jobs[index]()
-            then_here = self._then(*self._here) if self._here is not None else []
             try:
                 status, payload = self._parent.recv()
             except EOFError:
@@ -185,6 +197,7 @@ class _Child(Drawing):
                 raise ReportError(f"the process drawing the figures stopped unexpectedly ({cause}); run again, or "
                                   "with --no-figures") from None
         finally:
+            gc.unfreeze()
             self._child.join(timeout=2.0)  # (it has sent all it had; it is ending)
             self.stop()
         if status == "error":

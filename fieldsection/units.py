@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 import re
+import sys
 from functools import lru_cache
 from typing import Any
 
@@ -30,14 +31,30 @@ SI_UNITS = {
 
 @lru_cache(maxsize=1)
 def _registry():
-    import pint
-
+    pint = _import_pint()
     # pint parses its definitions file on every start (~0.4 s, a third of a small model's run) unless it may keep
     # the parsed result in the user's cache folder; where that folder cannot be used, the plain registry
     try:
         return pint.UnitRegistry(cache_folder=":auto:")
     except Exception:  # noqa: BLE001 - an unwritable or damaged cache must never stop a run
         return pint.UnitRegistry()
+
+
+def _import_pint():
+    """pint, imported without its optional support for dask arrays of quantities, which no case uses: importing
+    dask for it costs a sixth of a second on every start (a ``None`` in ``sys.modules`` makes an import fail, so
+    pint's compatibility module finds no dask); dask itself stays importable afterwards (for design studies)."""
+    if "pint" in sys.modules or "dask" in sys.modules:
+        import pint
+
+        return pint
+    sys.modules["dask"] = None
+    try:
+        import pint
+    finally:
+        if sys.modules.get("dask", 0) is None:
+            del sys.modules["dask"]
+    return pint
 
 
 def to_si(value: Any, kind: str, what: str) -> float:
@@ -56,8 +73,7 @@ def to_si(value: Any, kind: str, what: str) -> float:
     magnitude, unit_text = _split_quantity(value, kind, what)
     if not unit_text:
         return _finite(magnitude, what)
-    import pint
-
+    pint = _import_pint()
     target = SI_UNITS[kind]
     try:
         scale, offset = _conversion(unit_text, target)
