@@ -9,6 +9,7 @@ figures drawn beside the report (figures_worker) return their files or raise the
 
 from __future__ import annotations
 
+import importlib
 import os
 import subprocess
 import sys
@@ -23,6 +24,7 @@ from conftest import solve_script
 from fieldsection import Material
 from fieldsection.errors import ReportError
 from fieldsection.figures_grid import PixelGrid, map_layout
+import fieldsection.figures_worker as figures_worker
 from fieldsection.figures_worker import start_drawing
 from fieldsection.report import write_report
 
@@ -122,14 +124,19 @@ def test_drawing_beside_the_report_returns_its_files_or_raises_its_error(platfor
     drawing.give("then")
     drawn = drawing.finish()
     assert [name for name, _ in drawn] == ["a.png", "b.png"]
-    # several slow jobs: on Linux the child takes them from the front while this process, its own work done,
-    # takes them from the back; in a thread (elsewhere) all of them in this process; report order either way
-    shared = start_drawing([partial(_slow, k) for k in range(6)], _then)
-    shared.give("then")
-    drawn = shared.finish()
-    assert [name for name, _ in drawn] == [f"{k}.png" for k in range(6)] + ["b.png"]
-    here = {caption == f"drawn by {os.getpid()}" for _, caption in drawn[:6]}
-    assert here == ({True, False} if platform == "linux" else {True})
+    # several slow jobs: on Linux the child takes them from the front while this process, its own work done and
+    # the figure modules loaded (as ``warm_up`` does), takes them from the back; without those modules it leaves
+    # them all to the child; in a thread (elsewhere) all of them in this process; report order every way
+    for name in figures_worker._FIGURE_MODULES:
+        importlib.import_module(name)
+    for loaded in (True, False):
+        monkeypatch.setattr(figures_worker, "_can_help", lambda: loaded)
+        shared = start_drawing([partial(_slow, k) for k in range(6)], _then)
+        shared.give("then")
+        drawn = shared.finish()
+        assert [name for name, _ in drawn] == [f"{k}.png" for k in range(6)] + ["b.png"]
+        here = {caption == f"drawn by {os.getpid()}" for _, caption in drawn[:6]}
+        assert here == ({True} if platform != "linux" else {True, False} if loaded else {False})
     failing = start_drawing([_first], _then)
     failing.give("fail")
     with pytest.raises(ReportError, match="no room"):
