@@ -127,7 +127,7 @@ def write_report(
         try:
             if on_step:
                 on_step("results")
-            superposition = check_superposition(result.solution)
+            superposition = check_superposition(result.solution, helper=drawing is None)
             probes = [sample_probe(result.solution, result.fields, line) for line in result.case.probes]
             if drawing is not None:
                 drawing.give(superposition, probes)  # their figures are drawn while the rest is written

@@ -441,11 +441,12 @@ def _line(solution: Solution, tree, size) -> tuple[np.ndarray, np.ndarray, np.nd
 
 
 # ---------------------------------------------------------------------------------------- the check
-def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> SuperpositionCheck:
+def check_superposition(solution: Solution, *, bound_sign: float = 1.0, helper: bool = True) -> SuperpositionCheck:
     """Rebuild V at probe points from the charges of ``solution`` and compare with the FE potential.
 
     ``bound_sign`` multiplies every bound charge (1 for the check; -1 only to show a test that a sign
-    error in the bound-charge bookkeeping is caught)."""
+    error in the bound-charge bookkeeping is caught). ``helper``: whether a helper process may sum half of
+    the sources on a large mesh (not while another process, drawing the figures, has the second core)."""
     start = time.perf_counter()
     problem = solution.problem
     section = problem.section
@@ -497,7 +498,7 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0) -> Super
 
     # on a large mesh a helper process sums the first half of the elements' sources meanwhile (its sums are added
     # to these); without one, or if it fails, this process sums them too
-    if sources.size >= HELPER_ABOVE:  # alternate blocks of elements: each half spread over the whole section
+    if helper and sources.size >= HELPER_ABOVE:  # alternate blocks of elements: each half spread over the section
         block = (np.arange(sources.size) // HELPER_BLOCK) % 2 == 0
         halves = [sources[block], sources[~block]]
     else:

@@ -19,6 +19,7 @@ from scipy.constants import epsilon_0
 
 from conftest import solve_script
 from fieldsection import Material
+from fieldsection.forked import helper_call, helpers_available
 from fieldsection.superposition import SuperpositionCheck, check_superposition
 
 ROD = {"rod": Material("rod", 4.0, None), "host": Material("vacuum", 1.0, None)}
@@ -166,3 +167,40 @@ def test_the_multipole_sum_equals_the_direct_sum():
     direct = ((-q * np.log(np.abs(d))).sum(axis=1) + (m / d).real.sum(axis=1)) / (2 * np.pi * epsilon_0)
     # measured 3e-10 (order 20); an order-6 expansion gives 6e-5 and fails
     assert np.abs(fast.potential() - direct).max() < 1e-8 * np.abs(direct).max()
+    # the same sources summed in two parts (as a helper process does with half of them) and added together
+    first = LogPotentialSum(probes, where.min(axis=1), where.max(axis=1), where, 1.0)
+    second = LogPotentialSum(probes, where.min(axis=1), where.max(axis=1), where, 1.0)
+    first.add(w[:5000], q[:5000], m[:5000])
+    second.add(w[5000:], q[5000:], m[5000:])
+    first.absorb(second.state())
+    assert first.count == w.size
+    assert np.abs(first.potential() - direct).max() < 1e-8 * np.abs(direct).max()
+    other = LogPotentialSum(probes[:10], where.min(axis=1), where.max(axis=1), where, 1.0)
+    with pytest.raises(ValueError, match="other probes or another quadtree"):
+        first.absorb(other.state())
+
+
+def test_a_helper_process_sums_half_the_sources_to_the_same_number(rods, monkeypatch):
+    """Half of the sources summed in a forked helper process and added in (as on a large mesh) must give the
+    check of one process to round-off; a helper that fails leaves its half to this process, with the same
+    result."""
+    import fieldsection.superposition as superposition
+
+    alone = check_superposition(rods[1].solution, helper=False)
+    monkeypatch.setattr(superposition, "HELPER_ABOVE", 0)  # the small model takes a helper too
+    started = []
+    monkeypatch.setattr(superposition, "helper_call", lambda *a: started.append(1) or helper_call(*a))
+    shared = check_superposition(rods[1].solution)
+    assert started == ([1] if helpers_available() else [])
+
+    class Failed:
+        def result(self):
+            return None
+
+    monkeypatch.setattr(superposition, "helper_call", lambda *a: Failed())
+    without = check_superposition(rods[1].solution)
+    for check in (shared, without):
+        assert check.sources >= alone.sources  # (the two sides of a facet split between the halves: two sources)
+        np.testing.assert_allclose(check.rebuilt_potential, alone.rebuilt_potential, rtol=0,
+                                   atol=1e-9 * alone.potential_span)
+        assert check.largest_relative_difference == pytest.approx(alone.largest_relative_difference, rel=1e-6)
