@@ -4,8 +4,8 @@ Run on demand (never in the test suite):
 
     python benchmarks/small_model.py
 
-Each measurement runs in a fresh child process (``run._in_child``); compare the ratios of one run, not
-seconds across runs (the machine is shared). Printed, and written to benchmarks/results/small-<time>.json:
+Each measurement runs in a fresh child process (``run._in_child``), ``REPEATS`` times, the fastest taken;
+compare the ratios of one run, not seconds across runs (the machine is shared). Printed, and written to benchmarks/results/small-<time>.json:
 
 - the demo (geometries/busbar_laminated.toml, adaptive) end to end without figures, against the bare parts
   on its final mesh: gmsh meshing that mesh once (the adapter's ``mesh_geometry`` with the final mesh's own
@@ -37,6 +37,9 @@ import run as bench  # noqa: E402  (benchmarks/run.py: child processes, bare gms
 
 DEMO = HERE.parent / "geometries" / "busbar_laminated.toml"
 TARGETS = {"demo_end_to_end_ratio": 1.5, "demo_figures_seconds": 1.0, "small_case_with_figures_seconds": 1.5}
+#: each measurement is repeated, each time in a fresh process, and the fastest taken (on a shared machine the
+#: bare meshing alone varied from 2.2 s to 3.1 s between single runs)
+REPEATS = 3
 
 
 def _save_system(problem, path: str) -> int:
@@ -137,8 +140,13 @@ def main() -> int:
     with tempfile.TemporaryDirectory() as scratch:
         reports, path = str(Path(scratch) / "reports"), str(Path(scratch) / "system")
         print("demo (busbar_laminated, adaptive) ...", flush=True)
-        d = bench._in_child(demo, reports, path)
-        mesh = bench._in_child(demo_meshing, path, d["nodes"])
+        runs = [bench._in_child(demo, reports, path) for _ in range(REPEATS)]
+        d = min(runs, key=lambda r: r["seconds_without_figures"])
+        d["figures_seconds"] = min(r["figures_seconds"] for r in runs)
+        d["repeats_without_figures"] = [r["seconds_without_figures"] for r in runs]
+        meshings = [bench._in_child(demo_meshing, path, d["nodes"]) for _ in range(REPEATS)]
+        mesh = min(meshings, key=lambda r: r["seconds"])
+        mesh["repeats"] = [r["seconds"] for r in meshings]
         solver, solve = _fastest_solve(path, d["unknowns"])
         bare = mesh["seconds"] + solve
         out["demo"] = {**d, "bare_meshing": mesh, "bare_solver": solver, "bare_solve_seconds": solve,
@@ -147,8 +155,10 @@ def main() -> int:
         calibration = bench._in_child(bench.bare_gmsh, 2.0, 6)
         h = float(np.sqrt(calibration["nodes"] * 4.0 / 1e4))  # nodes ~ 1 / h^2
         print(f"1e4-node case (h = {h:.3g} mm) ...", flush=True)
-        gmsh_runs = [bench._in_child(bench.bare_gmsh, h, a) for a in (5, 6)]
-        small = bench._in_child(small_case, h, reports, path)
+        gmsh_runs = [bench._in_child(bench.bare_gmsh, h, a) for a in (5, 6) for _ in range(REPEATS)]
+        small_runs = [bench._in_child(small_case, h, reports, path) for _ in range(REPEATS)]
+        small = min(small_runs, key=lambda r: r["seconds"])
+        small["repeats"] = [r["seconds"] for r in small_runs]
         solver_small, solve_small = _fastest_solve(path, small["unknowns"])
         bare_small = min(r["seconds"] for r in gmsh_runs) + solve_small
         out["small_case"] = {**small, "h_mm": h, "bare_gmsh_seconds": min(r["seconds"] for r in gmsh_runs),
@@ -157,8 +167,10 @@ def main() -> int:
 
     d, s = out["demo"], out["small_case"]
     print(f"\ndemo: {d['passes']} passes, final mesh {d['nodes']} nodes, {d['dofs']} DOFs ({d['solver']})")
-    print(f"  end to end without figures  {d['seconds_without_figures']:7.2f} s")
-    print(f"  bare: gmsh final mesh {d['bare_meshing']['seconds']:.2f} s + solve ({d['bare_solver']}) "
+    print(f"  end to end without figures  {d['seconds_without_figures']:7.2f} s   (fastest of "
+          + ", ".join(f"{x:.2f}" for x in d["repeats_without_figures"]) + ")")
+    print(f"  bare: gmsh final mesh {d['bare_meshing']['seconds']:.2f} s (fastest of "
+          + ", ".join(f"{x:.2f}" for x in d["bare_meshing"]["repeats"]) + f") + solve ({d['bare_solver']}) "
           f"{d['bare_solve_seconds']:.3f} s")
     print(f"  ratio                       {d['demo_end_to_end_ratio']:7.2f}   (target {TARGETS['demo_end_to_end_ratio']})")
     print(f"  figures together            {d['figures_seconds']:7.2f} s (target {TARGETS['demo_figures_seconds']} s)")
@@ -166,7 +178,8 @@ def main() -> int:
     print("  slowest stages: " + ", ".join(f"{k} {v:.2f} s" for k, v in stages))
     print(f"  report stage without figures {d['report_without_figures']:.2f} s (superposition check, results, VTK)")
     print(f"\n1e4-node case: {s['nodes']} nodes, P1, one mesh, with figures {s['seconds']:.2f} s "
-          f"(target {TARGETS['small_case_with_figures_seconds']} s)")
+          f"(target {TARGETS['small_case_with_figures_seconds']} s; fastest of "
+          + ", ".join(f"{x:.2f}" for x in s["repeats"]) + ")")
     print(f"  bare: gmsh {s['bare_gmsh_seconds']:.3f} s + solve ({s['bare_solver']}) {s['bare_solve_seconds']:.3f} s; "
           f"ratio {s['ratio_to_bare_parts']:.1f}")
     folder = HERE / "results"
