@@ -30,7 +30,7 @@ from .case import Case
 from .conduction import (as_solution, coefficient_points, conductor_facets, element_values, field_magnitude_at_points,
                          fixed_lift, interface_faces, jump_density, material_per_element, region_peaks,
                          region_quadratic, stiffness_with, vertex_field, with_stiffness)
-from .errors import SolverError
+from .errors import MaterialError, SolverError
 from .fields import outward_flux
 from .hotspots import HotspotResult, find_hotspots
 from .problem import AssembledProblem, conductor_indicator
@@ -147,6 +147,10 @@ def _anderson(picard, scale: float, tolerance: float, max_iterations: int) -> tu
     return u, solves, change
 
 
+#: beta |E| above which exp() overflows in double precision (exp(709.8) is the largest double)
+LARGEST_FIELD_EXPONENT = 700.0
+
+
 def _sigma_function(problem: AssembledProblem, settings: AnalysisSettings):
     """(sigma(|E|) at the coefficient points, is-nonlinear), with the temperatures fixed."""
     x, y = coefficient_points(problem)
@@ -171,7 +175,17 @@ def _sigma_function(problem: AssembledProblem, settings: AnalysisSettings):
         beta[section.exterior] = 0.0  # open space beyond the circle: the Kelvin image's field is not E; sigma0 there
 
     def sigma(magnitude: np.ndarray | None) -> np.ndarray:
-        return base * np.exp(beta * magnitude) if magnitude is not None and beta.any() else base
+        if magnitude is None or not beta.any():
+            return base
+        growth = beta * magnitude
+        if growth.max() > LARGEST_FIELD_EXPONENT:  # exp() would overflow: refuse rather than solve with inf
+            k = int(np.unravel_index(np.argmax(growth), growth.shape)[0])
+            material = materials[section.region_of_element[k]]
+            raise MaterialError(
+                f"material {material.name!r}: the field factor exp(beta |E|) of its conductivity overflows at |E| = "
+                f"{float(magnitude.flat[np.argmax(growth)]) / 1e6:.4g} kV/mm (beta = {material.conductivity_beta * 1e6:.4g} "
+                "mm/kV); check conductivity_beta, or round the sharp edge where the field is singular")
+        return base * np.exp(growth)
 
     return sigma, nonlinear
 

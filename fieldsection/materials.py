@@ -78,6 +78,19 @@ class Material:
         if self.conductivity_beta < 0 or self.conductivity_alpha < 0:
             raise MaterialError(f"material {self.name!r}: conductivity_alpha_per_K and conductivity_beta must be >= 0 "
                                 "(conductivity that falls with temperature or field is not modelled)")
+        if self.conductivity_alpha > LARGEST_CONDUCTIVITY_ALPHA:
+            raise MaterialError(f"material {self.name!r}: conductivity_alpha_per_K {self.conductivity_alpha:g} is beyond "
+                                f"{LARGEST_CONDUCTIVITY_ALPHA:g} per K (insulation: of order 0.01-0.1 per K); check it")
+        if self.conductivity_beta > LARGEST_CONDUCTIVITY_BETA:
+            raise MaterialError(f"material {self.name!r}: conductivity_beta {self.conductivity_beta:g} m/V is beyond "
+                                f"{LARGEST_CONDUCTIVITY_BETA:g} m/V (10 mm/kV; insulation: of order 0.01-0.1 mm/kV); a bare "
+                                "number is read in m/V: write it with its unit, e.g. '0.03 mm/kV'")
+
+
+#: bounds far above any insulation's measured sigma(T, E) coefficients (of order 0.01-0.1 per K and 0.01-0.1 mm/kV:
+#: common practice, no source), to catch a unit slip before exp() overflows
+LARGEST_CONDUCTIVITY_ALPHA = 1.0  # per K
+LARGEST_CONDUCTIVITY_BETA = 1e-5  # m/V, 10 mm/kV
 
 
 _ALLOWED_KEYS = {

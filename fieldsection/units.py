@@ -74,6 +74,9 @@ def to_si(value: Any, kind: str, what: str) -> float:
     if not unit_text:
         return _finite(magnitude, what)
     pint = _import_pint()
+    # "mil" is a thousandth of an inch on circuit boards and datasheets ("10 mil", "500 V/mil"); pint reads it
+    # as the angular mil, which no case file means
+    unit_text = _MIL.sub("thou", unit_text)
     target = SI_UNITS[kind]
     try:
         scale, offset = _conversion(unit_text, target)
@@ -103,6 +106,7 @@ _UNIT_NAME = r"[A-Za-z_\u00b5\u03bc\u03a9\u00b0][A-Za-z0-9_\u00b5\u03bc\u03a9\u0
 _UNIT = rf"(?:1\s*/\s*)?{_UNIT_NAME}(?:\s*[*/\u00b7]\s*{_UNIT_NAME}|\s+{_UNIT_NAME})*"
 _QUANTITY = re.compile(rf"\s*({_NUMBER})\s*({_UNIT})?\s*")
 _LONGEST_TEXT = 100
+_MIL = re.compile(r"\bmils?\b")
 
 
 def _split_quantity(text: str, kind: str, what: str) -> tuple[float, str]:

@@ -186,6 +186,17 @@ def test_field_dependent_conductivity_against_lambert_w():
     assert dc.regions["insulation"].ratio_to_electrostatic < 0.95
 
 
+def test_a_field_factor_that_would_overflow_is_a_clear_error():
+    """beta |E| past exp()'s range (the largest allowed beta, 10 mm/kV, at the 91 kV/mm of the 1/3 mm coax at
+    100 kV, from E(a) = V / (a ln(b/a)): Pozar, Table 2.1, from memory) is refused, naming the material."""
+    from fieldsection.errors import MaterialError
+
+    material = Material("steep", 2.3, None, conductivity=1e-16, conductivity_beta=1e-5)
+    with pytest.raises(MaterialError, match=r"material 'steep': the field factor exp\(beta \|E\|\) of its "
+                                            r"conductivity overflows at \|E\| = (8\d|9[01])(\.\d+)? kV/mm \(beta = 10 mm/kV\)"):
+        analyse(coax_case("coaxial.geo", {"insulation": material}, {"lc": 0.5}, voltage=1e5))
+
+
 def test_picard_with_beta_zero_reproduces_the_linear_closed_form():
     sigma = 2e-13
     result = analyse(coax_case("coaxial.geo", {"insulation": Material("x", 2.3, None, conductivity=sigma)},
@@ -293,6 +304,12 @@ def test_the_dc_base_case_runs(tmp_path, capsys):
         ('conductivity = "1e-15 S/m"', 'conductivity = "1e-15 S/m"\ndc_strength = "-5 kV/mm"',
          r"material 'mine': DC strength -5000000\.0 V/m must be positive"),
         ('gap = "mine"', 'gap = "PTFE"', r"regions\.gap: material 'PTFE' has no conductivity, which the DC analysis needs"),
+        # a bare number is in m/V: 1 m/V is 1e6 mm/kV, where insulation has 0.01-0.1 (common practice, no source)
+        ('conductivity = "1e-15 S/m"', 'conductivity = "1e-15 S/m"\nconductivity_beta = 1',
+         r"material 'mine': conductivity_beta 1 m/V is beyond 1e-05 m/V \(10 mm/kV; .*write it with its unit, "
+         r"e\.g\. '0\.03 mm/kV'"),
+        ('conductivity = "1e-15 S/m"', 'conductivity = "1e-15 S/m"\nconductivity_alpha_per_K = 5',
+         r"material 'mine': conductivity_alpha_per_K 5 is beyond 1 per K"),
     ],
 )
 def test_dc_case_file_errors(tmp_path, capsys, old, new, expected):

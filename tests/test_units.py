@@ -1,0 +1,54 @@
+"""Values with units at the case file's edge: pint parses them (its own definitions: the SI prefixes and units
+as defined by the BIPM SI brochure, 9th edition, 2019; from memory)."""
+
+import subprocess
+import sys
+
+import pytest
+
+from fieldsection import units
+from fieldsection.errors import UnitError
+
+
+def test_engineering_units_to_si():
+    assert units.to_si("12 kV", "voltage", "x") == pytest.approx(12e3, rel=1e-15)
+    assert units.to_si("20 kV/mm", "field", "x") == pytest.approx(20e6, rel=1e-15)
+    assert units.to_si("0.2 mm", "length", "x") == pytest.approx(2e-4, rel=1e-15)
+    # 1 inch = 25.4 mm exactly (international yard and pound agreement, 1959); a mil is a thousandth of it
+    assert units.to_si("10 mil", "length", "x") == pytest.approx(254e-6, rel=1e-12)
+    assert units.to_si("500 V/mil", "field", "x") == pytest.approx(500 / 25.4e-6, rel=1e-12)
+    with pytest.raises(UnitError, match="is not a voltage"):
+        units.to_si("3 mm", "voltage", "x.y")
+
+
+def test_an_unusable_cache_folder_falls_back_to_the_plain_registry(monkeypatch):
+    import pint
+
+    real = pint.UnitRegistry
+
+    def refusing(*args, **kwargs):
+        if kwargs.get("cache_folder") is not None:
+            raise PermissionError("the cache folder is read-only")
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(pint, "UnitRegistry", refusing)
+    units._registry.cache_clear()
+    units._conversion.cache_clear()
+    try:
+        assert units.to_si("1.5 kV", "voltage", "x") == pytest.approx(1500.0, rel=1e-15)
+    finally:
+        units._registry.cache_clear()
+        units._conversion.cache_clear()
+
+
+def test_pint_comes_without_dask_and_dask_stays_importable():
+    # in a fresh interpreter: reading a value with a unit imports pint, not dask; dask imports afterwards
+    script = ("import sys\n"
+              "from fieldsection.units import to_si\n"
+              "assert to_si('1 kV', 'voltage', 'x') == 1000.0\n"
+              "print('dask' in sys.modules)\n"
+              "import dask\n"
+              "print(dask.__name__)\n")
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.split() == ["False", "dask"]
