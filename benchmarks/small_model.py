@@ -119,8 +119,9 @@ def small_case(h_mm: float, reports: str, path: str) -> dict:
     from fieldsection.report import write_report
 
     start = time.perf_counter()
-    warm_up()  # as a command-line run with figures does: matplotlib's import beside the analysis
-    result = analyse(bench._case(h_mm, 1))
+    case = bench._case(h_mm, 1)
+    warm_up()  # as a command-line run with figures does once the case is read: matplotlib's import beside the analysis
+    result = analyse(case)
     write_report(result, reports, with_figures=True)
     seconds = time.perf_counter() - start
     unknowns = _save_system(result.problem, path)

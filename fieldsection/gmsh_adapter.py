@@ -32,6 +32,11 @@ from .limits import anonymous_memory, current_gmsh_limits, machine_memory
 from .local_refinement import CurveShape
 from .splitting import Snap, split_into_four, with_mid_edge_nodes
 
+try:  # gmsh's module (its library: ~0.15 s to load) loaded once here, so that every meshing child inherits it
+    import gmsh as _gmsh_loaded  # noqa: F401  (gmsh's state stays in the children: nothing is initialised here)
+except Exception:  # noqa: BLE001 - the meshing child imports it again and reports what fails
+    pass
+
 #: seconds gmsh may take to read a script and mesh it before it is stopped (a mistyped size can ask for
 #: billions of elements, a script can loop for ever); ``limits.gmsh_limits`` and ``--time-limit`` override it
 MESHING_TIME_LIMIT = 3600.0
