@@ -17,7 +17,7 @@ from scipy.constants import epsilon_0
 
 #: terms of the multipole expansion of a far cell (cells at least two cells away: ratio <= 0.47 per term)
 MULTIPOLE_ORDER = 20
-#: probe-source pairs summed directly at once (bounds the memory of the near field)
+#: probe-source pairs summed directly at once (bounds the memory of the near field's blocks)
 PAIRS_PER_BATCH = 1_000_000
 
 
@@ -124,39 +124,44 @@ class LogPotentialSum:
         self._add_direct(w, q if charged else None, m, cells)
 
     def _add_direct(self, w, q, m, cells) -> None:
-        n = 2 ** self.depth  # (sources sorted by cell)
+        """Direct sums over the sources (sorted by cell) in the nine finest cells around each probe: per cell that
+        holds probes, its probes against the sources of the three rows of three cells around it (each row one
+        contiguous run of the sorted sources), as small dense blocks (a loop over the probes' cells, at most
+        one per probe: they stay in cache, where gathering every probe-source pair did not)."""
+        n = 2 ** self.depth
         counts = np.bincount(cells, minlength=n * n)
-        starts = np.cumsum(counts) - counts
+        ends = np.cumsum(counts)
+        starts = ends - counts
         pi, pj = self._ij(self.z.real, self.z.imag, self.depth)
-        for di in (-1, 0, 1):  # the nine cells around each probe
-            for dj in (-1, 0, 1):
-                ni, nj = pi + di, pj + dj
-                ok = (ni >= 0) & (ni < n) & (nj >= 0) & (nj < n)
-                probe = np.flatnonzero(ok)
-                cell = ni[ok] * n + nj[ok]
-                many = counts[cell]
-                # batches of probes with at most PAIRS_PER_BATCH source pairs each (bounded memory)
-                batch = np.cumsum(many) // PAIRS_PER_BATCH
-                for b in np.unique(batch[many > 0]):
-                    mine = batch == b
-                    self._pairs(probe[mine], starts[cell[mine]], many[mine], w, q, m)
+        cell_of_probe = pi * n + pj
+        order = np.argsort(cell_of_probe, kind="stable")
+        groups = np.split(order, np.flatnonzero(np.diff(cell_of_probe[order])) + 1)
+        for group in groups:  # the probes' cells, not the mesh
+            i, j = int(pi[group[0]]), int(pj[group[0]])
+            low, high = max(j - 1, 0), min(j + 1, n - 1)
+            runs = [(starts[r * n + low], ends[r * n + high]) for r in range(max(i - 1, 0), min(i + 1, n - 1) + 1)]
+            runs = [(a, b) for a, b in runs if b > a]
+            if not runs:
+                continue
+            ws = np.concatenate([w[a:b] for a, b in runs])
+            qs = None if q is None else np.concatenate([q[a:b] for a, b in runs])
+            ms = None if m is None else np.concatenate([m[a:b] for a, b in runs])
+            rows = max(1, PAIRS_PER_BATCH // ws.size)  # probes at once: bounded memory
+            for first in range(0, group.size, rows):
+                self._block(group[first:first + rows], ws, qs, ms)
 
-    def _pairs(self, probe, first, many, w, q, m) -> None:
-        """Direct sum over sources first[k] .. first[k] + many[k] - 1 for each probe[k]; a source on a probe
-        adds nothing (its own point, where the potential is integrable)."""
-        pair_probe = np.repeat(probe, many)
-        source = np.repeat(first - (np.cumsum(many) - many), many) + np.arange(many.sum())
-        d = w[source] - self.z[pair_probe]
+    def _block(self, probes, ws, qs, ms) -> None:
+        """Direct sums of sources ``ws`` (charges ``qs``, moments ``ms``, either may be None) at ``probes``; a
+        source on a probe adds nothing (its own point, where the potential is integrable)."""
+        d = ws[None, :] - self.z[probes, None]
         r2 = d.real * d.real + d.imag * d.imag
         on_probe = r2 == 0
         r2[on_probe] = 1.0  # ln 1 = 0, and its moment term is zeroed below
-        value = np.zeros(r2.shape)
-        if q is not None:  # -q ln r = -q ln(r^2) / 2
-            value = np.log(r2)
-            value *= -0.5 * q[source]
-        if m is not None:  # Re(m / d) = Re(m conj(d)) / r^2
-            value += (m[source] * d.conjugate()).real / r2 * ~on_probe
-        self.direct += np.bincount(pair_probe, value, len(self.z))
+        if qs is not None:  # -q ln r = -q ln(r^2) / 2
+            self.direct[probes] -= 0.5 * (np.log(r2) @ qs)
+        if ms is not None:  # Re(m / d) = Re(m conj(d)) / r^2
+            inverse = np.where(on_probe, 0.0, 1.0 / r2)
+            self.direct[probes] += (d.real * inverse) @ ms.real + (d.imag * inverse) @ ms.imag
 
     def _far(self, level: int, charge: np.ndarray, moments: np.ndarray) -> np.ndarray:
         """The interaction list's contribution at ``level``, per probe."""
