@@ -106,21 +106,22 @@ class LogPotentialSum:
         m = None if m is None else m[order]
         self.charge += np.bincount(cells, q, n * n)
         zeta = (w - self._centre(i, j, level)) / size
-        # terms[k - 1] = q zeta^k / k - (m / size) zeta^(k - 1), summed over each cell's run of sources
-        terms = np.empty((MULTIPOLE_ORDER, zeta.size), dtype=complex)
-        power = zeta * q  # q zeta^k, built up term by term in place
-        terms[0] = power
-        for k in range(2, MULTIPOLE_ORDER + 1):
-            power *= zeta
-            np.multiply(power, 1.0 / k, out=terms[k - 1])
-        if m is not None:
-            shifted = m / size  # (m / size) zeta^(k - 1)
-            terms[0] -= shifted
-            for k in range(2, MULTIPOLE_ORDER + 1):
-                shifted *= zeta
-                terms[k - 1] -= shifted
+        # term k: q zeta^k / k - (m / size) zeta^(k - 1), summed over each cell's run of sources; one term at a
+        # time (a few arrays of the sources' size, not one per term)
         first = np.flatnonzero(np.r_[True, cells[1:] != cells[:-1]])
-        self.moments[:, cells[first]] += np.add.reduceat(terms, first, axis=1)
+        target = cells[first]
+        power = zeta * q  # q zeta^k, built up term by term in place
+        shifted = None if m is None else m / size  # (m / size) zeta^(k - 1)
+        term = np.empty_like(zeta)
+        for k in range(1, MULTIPOLE_ORDER + 1):
+            if k > 1:
+                power *= zeta
+            np.multiply(power, 1.0 / k, out=term)
+            if shifted is not None:
+                if k > 1:
+                    shifted *= zeta
+                term -= shifted
+            self.moments[k - 1, target] += np.add.reduceat(term, first)
         self._add_direct(w, q if charged else None, m, cells)
 
     def _add_direct(self, w, q, m, cells) -> None:
