@@ -11,6 +11,7 @@ from skfem import MeshTri1, MeshTri2
 
 from .errors import MeshError
 from .gmsh_adapter import RawMesh, mesh_disc
+from .isoparametric import install as install_mapping
 from .splitting import edge_keys, find_edges, unique_edges
 
 #: region name of the mapped exterior of an open-space circle
@@ -307,7 +308,7 @@ def build_section_mesh(raw: RawMesh, open_circle: OpenCircle | None = None) -> S
         edge_pairs, mid_nodes = edge_pairs[given], mid_nodes[given]
         facets = _match_facets(base, edge_pairs, "mid-edge nodes", facet_keys)
         doflocs[:, base.nvertices + facets] = raw.points[mid_nodes].T
-        mesh = _with_facets(MeshTri2(np.ascontiguousarray(doflocs), base.t), like=base)
+        mesh = install_mapping(_with_facets(MeshTri2(np.ascontiguousarray(doflocs), base.t), like=base))
 
     areas = _check_quality(mesh)
     drawn = region_of_element != (names.index(EXTERIOR) if EXTERIOR in names else -1)

@@ -93,3 +93,32 @@ def test_linear_basis_places_its_dofs_on_the_vertices():
     basis, mesh = result.problem.basis, result.section.mesh
     np.testing.assert_array_equal(basis.doflocs, mesh.p)
     np.testing.assert_array_equal(dof_location(basis, mesh.nvertices - 1), mesh.p[:, -1])
+
+
+def test_curved_meshes_compute_each_inverse_jacobian_once_with_the_same_numbers(monkeypatch):
+    """The section's curved mesh maps through ``isoparametric.InverseOnce``: a P2 basis asks for the inverse
+    Jacobian once per shape function, computed once here, and the basis (values, gradients, weights) is the one
+    of scikit-fem's own isoparametric mapping, number for number."""
+    from skfem import Basis
+    from skfem.mapping import MappingIsoparametric
+
+    from conftest import solve_script
+    from fieldsection import Material
+    from fieldsection.isoparametric import InverseOnce
+
+    result = solve_script("coaxial.geo", {"insulation": Material("pe", 2.3, None)}, {"inner": 1.0, "outer": 0.0},
+                          parameters={"lc": 0.5})
+    mesh = result.section.mesh
+    assert result.section.curved and isinstance(mesh.mapping(), InverseOnce)
+    computed = []
+    original = MappingIsoparametric.invDF
+    monkeypatch.setattr(MappingIsoparametric, "invDF", lambda self, *a, **k: computed.append(1) or original(self, *a, **k))
+    ours = Basis(mesh, result.problem.basis.elem, intorder=4)
+    assert len(computed) == 1  # six shape functions, one inverse
+    theirs = Basis(mesh, result.problem.basis.elem, intorder=4,
+                   mapping=MappingIsoparametric(mesh, mesh.elem(), mesh.bndelem))
+    assert len(computed) == 1 + 6
+    for a, b in zip(ours.basis, theirs.basis):
+        np.testing.assert_array_equal(np.asarray(a[0].grad), np.asarray(b[0].grad))
+        np.testing.assert_array_equal(np.asarray(a[0]), np.asarray(b[0]))
+    np.testing.assert_array_equal(ours.dx, theirs.dx)
