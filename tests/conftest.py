@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import subprocess
+import sys
 from pathlib import Path
 
 import pytest
@@ -31,3 +33,11 @@ def solve_script(script: str, regions: dict[str, Material], electrodes: dict[str
 @pytest.fixture
 def geometries() -> Path:
     return GEOMETRIES
+
+
+def run_fresh_python(*lines: str) -> str:
+    """Run ``lines`` as a script in a fresh interpreter (nothing imported yet); its standard output, after
+    asserting that it succeeded."""
+    out = subprocess.run([sys.executable, "-c", "\n".join(lines)], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    return out.stdout

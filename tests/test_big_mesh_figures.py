@@ -11,8 +11,6 @@ from __future__ import annotations
 
 import importlib
 import os
-import subprocess
-import sys
 import time
 from functools import partial
 
@@ -20,7 +18,7 @@ import numpy as np
 import pytest
 
 import fieldsection.figures as figures
-from conftest import solve_script
+from conftest import run_fresh_python, solve_script
 from fieldsection import Material
 from fieldsection.errors import ReportError
 from fieldsection.figures_grid import PixelGrid, map_layout
@@ -180,14 +178,8 @@ def test_a_map_image_lands_on_its_axes_right_way_up(tmp_path):
 def test_figure_modules_imported_beside_the_analysis_before_the_drawing_forks():
     # in a fresh interpreter (matplotlib not yet imported): warm_up imports in a thread, and start_drawing waits
     # for it before forking, so the child never inherits a held import lock and finds matplotlib loaded
-    script = ("import sys\n"
-              "from fieldsection.figures_worker import start_drawing, warm_up\n"
-              "assert 'matplotlib' not in sys.modules\n"
-              "warm_up()\n"
-              "drawing = start_drawing([lambda: [('first', sys.modules.get('fieldsection.figures') is not None)]],\n"
-              "                        lambda: [])\n"
-              "drawing.give()\n"
-              "print(drawing.finish())\n")
-    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=120)
-    assert out.returncode == 0, out.stderr
-    assert out.stdout.strip() == "[('first', True)]"
+    out = run_fresh_python("import sys", "from fieldsection.figures_worker import start_drawing, warm_up",
+                           "assert 'matplotlib' not in sys.modules", "warm_up()",
+                           "drawing = start_drawing([lambda: [('first', sys.modules.get('fieldsection.figures') is not None)]],"
+                           " lambda: [])", "drawing.give()", "print(drawing.finish())")
+    assert out.strip() == "[('first', True)]"

@@ -11,7 +11,6 @@ and a sign error in the bound charge must show.
 """
 
 import json
-from dataclasses import replace
 
 import numpy as np
 import pytest

@@ -1,11 +1,9 @@
 """Values with units at the case file's edge: pint parses them (its own definitions: the SI prefixes and units
 as defined by the BIPM SI brochure, 9th edition, 2019; from memory)."""
 
-import subprocess
-import sys
-
 import pytest
 
+from conftest import run_fresh_python
 from fieldsection import units
 from fieldsection.errors import UnitError
 
@@ -43,12 +41,7 @@ def test_an_unusable_cache_folder_falls_back_to_the_plain_registry(monkeypatch):
 
 def test_pint_comes_without_dask_and_dask_stays_importable():
     # in a fresh interpreter: reading a value with a unit imports pint, not dask; dask imports afterwards
-    script = ("import sys\n"
-              "from fieldsection.units import to_si\n"
-              "assert to_si('1 kV', 'voltage', 'x') == 1000.0\n"
-              "print('dask' in sys.modules)\n"
-              "import dask\n"
-              "print(dask.__name__)\n")
-    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=120)
-    assert out.returncode == 0, out.stderr
-    assert out.stdout.split() == ["False", "dask"]
+    out = run_fresh_python("import sys", "from fieldsection.units import to_si",
+                           "assert to_si('1 kV', 'voltage', 'x') == 1000.0", "print('dask' in sys.modules)",
+                           "import dask", "print(dask.__name__)")
+    assert out.split() == ["False", "dask"]
