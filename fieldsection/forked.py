@@ -58,7 +58,12 @@ class HelperCall:
         wait_for_background_threads()
         self._receiver, sender = multiprocessing.Pipe(duplex=False)
         parent = os.getpid()
-        self._pid = os.fork()
+        try:
+            self._pid = os.fork()
+        except OSError:
+            self._receiver.close()
+            sender.close()
+            raise
         if self._pid == 0:  # the child: never returns into the parent's code
             code = 1
             try:
@@ -97,5 +102,11 @@ class HelperCall:
 
 
 def helper_call(work: Callable[..., Any], *args: Any) -> HelperCall | None:
-    """Start ``work(*args)`` in a helper process, or None where none is available (``helpers_available``)."""
-    return HelperCall(work, *args) if helpers_available() else None
+    """Start ``work(*args)`` in a helper process, or None where none is available (``helpers_available``) or the
+    system refuses one (no process or pipe to spare): the caller then does the work itself."""
+    if not helpers_available():
+        return None
+    try:
+        return HelperCall(work, *args)
+    except OSError:
+        return None

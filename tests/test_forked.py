@@ -45,3 +45,13 @@ def test_no_helper_inside_a_pool_worker():
 
 def _helper_or_none():
     return helper_call(_pid_and_sum, [1])
+
+
+def test_a_refused_fork_means_no_helper(monkeypatch):
+    # a system out of processes (or one that forbids fork) refuses with OSError: no helper, and no error
+    def refused():
+        raise BlockingIOError(11, "Resource temporarily unavailable")
+
+    monkeypatch.setattr(os, "fork", refused)
+    if helpers_available():
+        assert helper_call(_pid_and_sum, [1]) is None
