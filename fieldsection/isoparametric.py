@@ -16,9 +16,23 @@ from skfem.mapping import MappingIsoparametric
 
 
 class InverseOnce(MappingIsoparametric):
-    """``MappingIsoparametric`` with a one-entry memory of ``invDF`` (see the module docstring)."""
+    """``MappingIsoparametric`` with a one-entry memory of ``invDF`` (see the module docstring), and of the
+    Jacobian's entries for the last points and elements only: scikit-fem's own memory keeps those of every
+    combination asked for, for the mesh's lifetime (four arrays of elements x points each: about 1 GB at a million
+    curved elements after the bases of one run), and hashes a copy of the arrays at every call."""
 
     _last: tuple | None = None
+    _j_key: tuple | None = None
+    _j_values: dict | None = None
+
+    def J(self, i: int, j: int, X: np.ndarray, tind: np.ndarray | None = None) -> np.ndarray:  # noqa: N802
+        key = self._j_key
+        if key is None or key[0] is not X or key[1] is not tind:  # other arrays: other points or elements
+            self._j_key, self._j_values = (X, tind), {}
+        values = self._j_values
+        if (i, j) not in values:
+            values[(i, j)] = self._J(i, j, X, tind)
+        return values[(i, j)]
 
     def invDF(self, X: np.ndarray, tind: np.ndarray | None = None) -> np.ndarray:  # noqa: N802 (scikit-fem's name)
         last = self._last

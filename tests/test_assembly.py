@@ -122,3 +122,6 @@ def test_curved_meshes_compute_each_inverse_jacobian_once_with_the_same_numbers(
         np.testing.assert_array_equal(np.asarray(a[0].grad), np.asarray(b[0].grad))
         np.testing.assert_array_equal(np.asarray(a[0]), np.asarray(b[0]))
     np.testing.assert_array_equal(ours.dx, theirs.dx)
+    # the Jacobian of the last points and elements only is kept (scikit-fem's own mapping keeps every one)
+    Basis(mesh, result.problem.basis.elem, intorder=2)
+    assert len(mesh.mapping()._j_values) == 4 and not hasattr(mesh.mapping(), "_cache")
