@@ -43,6 +43,34 @@ def die_with_parent(parent: int) -> None:
         os._exit(1)
 
 
+def fork_child(body: Callable[[], None], *close_in_child: Any) -> int:
+    """Fork a child that closes ``close_in_child`` (the parent's ends of its pipes), ignores Ctrl-C (its parent
+    stops it), dies with its parent, runs ``body()`` and exits: 0 if ``body`` returned, 1 if it raised (never
+    returning into the parent's code). Returns the child's process id, for ``reap``.
+
+    A plain fork rather than ``multiprocessing.Process``, which refuses to start from a daemonic process (a Dask
+    worker, a process pool's worker); the child needs none of its bookkeeping."""
+    parent = os.getpid()
+    pid = os.fork()
+    if pid == 0:
+        code = 1
+        try:
+            for end in close_in_child:
+                end.close()
+            signal.signal(signal.SIGINT, signal.SIG_IGN)
+            die_with_parent(parent)
+            body()
+            code = 0
+        finally:
+            os._exit(code)
+    return pid
+
+
+def reap(pid: int) -> int:
+    """Wait for the child ``pid`` to end: its exit code, or minus the signal that ended it."""
+    return os.waitstatus_to_exitcode(os.waitpid(pid, 0)[1])
+
+
 def helpers_available() -> bool:
     """Whether a helper process would run beside this one: Linux (a safe fork), at least two cores for this
     process, and not a worker of a pool or cluster (whose cores the other workers use already)."""
@@ -57,27 +85,20 @@ class HelperCall:
     def __init__(self, work: Callable[..., Any], *args: Any):
         wait_for_background_threads()
         self._receiver, sender = multiprocessing.Pipe(duplex=False)
-        parent = os.getpid()
-        try:
-            self._pid = os.fork()
-        except OSError:
-            self._receiver.close()
-            sender.close()
-            raise
-        if self._pid == 0:  # the child: never returns into the parent's code
-            code = 1
+
+        def body() -> None:
             try:
-                self._receiver.close()
-                signal.signal(signal.SIGINT, signal.SIG_IGN)
-                die_with_parent(parent)
-                try:
-                    sender.send(work(*args))
-                    code = 0
-                finally:
-                    sender.close()
+                sender.send(work(*args))
             finally:
-                os._exit(code)
-        sender.close()
+                sender.close()
+
+        try:
+            self._pid = fork_child(body, self._receiver)
+        except OSError:  # the system refused the fork
+            self._receiver.close()
+            raise
+        finally:
+            sender.close()
 
     def result(self) -> Any | None:
         """The child's value; None if it failed or died (the caller then does the work itself)."""
@@ -96,7 +117,7 @@ class HelperCall:
             os.kill(self._pid, signal.SIGKILL)
         except ProcessLookupError:
             pass
-        os.waitpid(self._pid, 0)
+        reap(self._pid)
         self._pid = None
         self._receiver.close()
 

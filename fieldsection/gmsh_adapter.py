@@ -18,6 +18,7 @@ import os
 import sys
 import time
 from contextlib import contextmanager
+from functools import partial
 from dataclasses import dataclass, field
 from typing import Iterator, Mapping
 
@@ -25,7 +26,7 @@ import numpy as np
 
 from .case import MAX_REFINEMENTS, BuilderGeometry, MeshSettings, ScriptGeometry
 from .errors import GeometryError, MeshError
-from .forked import die_with_parent
+from .forked import fork_child, reap
 from .geometry import screen_script
 from .mesh_budget import CurveSizing, NodeEstimate, SurfaceSizing, default_node_limit, estimate_nodes, refuse_if_too_big
 from .limits import anonymous_memory, current_gmsh_limits, machine_memory
@@ -178,7 +179,7 @@ def _isolated(work, *args):
     receiver, sender = multiprocessing.Pipe(duplex=False)
     inherited = anonymous_memory(os.getpid())  # the child's memory at the fork, not its own doing
     deadline = time.monotonic() + seconds
-    child = _fork_child(receiver, sender, work, args)
+    child = fork_child(partial(_child, sender, work, args), receiver)
     sender.close()
     try:
         while not receiver.poll(max(0.0, min(_WATCH_SECONDS, deadline - time.monotonic()))):
@@ -195,7 +196,7 @@ def _isolated(work, *args):
                     "look for huge lists in the script")
         status, payload = receiver.recv()
     except EOFError:
-        code = _reap(child)
+        code = reap(child)
         cause = f"killed by signal {-code}" if code is not None and code < 0 else f"exit code {code}"
         if code == -9:
             cause += ", probably for lack of memory"
@@ -204,44 +205,18 @@ def _isolated(work, *args):
             "sizes, simplify the geometry, or check the script in gmsh's own window") from None
     except BaseException:  # a limit passed, or the user interrupted: stop the child first
         os.kill(child, signal.SIGKILL)
-        _reap(child)
+        reap(child)
         raise
     finally:
         receiver.close()
-    _reap(child)
+    reap(child)
     if status == "error":
         raise payload
     return payload
 
 
-def _fork_child(receiver, sender, work, args) -> int:
-    """Fork the child that runs ``work(*args)`` and sends its outcome; its process id.
-
-    A plain fork rather than ``multiprocessing.Process``, which refuses to start from a daemonic
-    process (a Dask worker, a process pool's worker); the child needs none of its bookkeeping: the
-    parent always reaps it (``_reap``), and the child dies with its parent (``forked.die_with_parent``).
-    """
-    parent = os.getpid()
-    pid = os.fork()
-    if pid == 0:  # the child: never returns into the parent's code
-        code = 1
-        try:
-            receiver.close()
-            _child(sender, work, args, parent)
-            code = 0
-        finally:
-            os._exit(code)
-    return pid
-
-
-def _reap(pid: int) -> int:
-    """Wait for the child to end: its exit code, or minus the signal that ended it."""
-    return os.waitstatus_to_exitcode(os.waitpid(pid, 0)[1])
-
-
-def _child(sender, work, args, parent: int) -> None:
-    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle: it stops this child
-    die_with_parent(parent)
+def _child(sender, work, args) -> None:
+    """In the forked child (``forked.fork_child``: no Ctrl-C, dies with its parent): sends ``work(*args)``'s outcome."""
     try:
         sender.send(("ok", work(*args)))
     except (GeometryError, MeshError) as exc:
