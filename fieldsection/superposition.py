@@ -97,37 +97,33 @@ class SuperpositionCheck:
 
 
 # ------------------------------------------------------------------------------------------ sources
-def _edge_quadrature(solution: Solution, elements: np.ndarray, edge: int, linear_E: np.ndarray | None = None):
-    """On local edge ``edge`` of ``elements``: Gauss points (n, q) complex, weights ds (n, q), E (n, q, 2),
-    outward unit normal (n, q, 2), V (n, q). ``linear_E`` (n, 2): the elements' constant E, for linear
-    elements on straight triangles."""
-    problem = solution.problem
-    mesh = problem.section.mesh
+def _linear_edge_quadrature(solution: Solution, elements: np.ndarray, edge: int, linear_E: np.ndarray):
+    """On local edge ``edge`` of linear ``elements`` on straight triangles: Gauss points (n, q) complex, weights
+    ds (n, q), E (n, q, 2), outward unit normal (n, q, 2), V (n, q); ``linear_E`` (n, 2): the elements' constant E."""
+    mesh = solution.problem.section.mesh
     a, b = _EDGES[edge]
-    if _is_linear(problem):
-        t = mesh.t[:, elements]
-        x, y = mesh.p[0], mesh.p[1]  # one coordinate row at a time: 2D fancy indexing is several times slower
-        ax, ay, bx, by = x[t[a]], y[t[a]], x[t[b]], y[t[b]]
-        cx, cy = x[t[3 - a - b]], y[t[3 - a - b]]
-        tx, ty = bx - ax, by - ay
-        length = np.hypot(tx, ty)
-        nx, ny = ty / length, -tx / length
-        flip = np.where(nx * (0.5 * (ax + bx) - cx) + ny * (0.5 * (ay + by) - cy) < 0, -1.0, 1.0)
-        nx, ny = nx * flip, ny * flip
-        points = (ax + 1j * ay)[:, None] + (tx + 1j * ty)[:, None] * _GS[None, :]
-        u = solution.potential
-        ua, ub = u[t[a]], u[t[b]]
-        E = np.broadcast_to(linear_E[:, None, :], (len(elements), EDGE_POINTS, 2))
-        V = ua[:, None] + (ub - ua)[:, None] * _GS[None, :]
-        ds = length[:, None] * _GW[None, :]
-        n_q = np.broadcast_to(np.stack([nx, ny], axis=1)[:, None, :], E.shape)
-        return points, ds, E, n_q, V
-    return _curved_edge_quadrature(solution, elements)[edge]
+    t = mesh.t[:, elements]
+    x, y = mesh.p[0], mesh.p[1]  # one coordinate row at a time: 2D fancy indexing is several times slower
+    ax, ay, bx, by = x[t[a]], y[t[a]], x[t[b]], y[t[b]]
+    cx, cy = x[t[3 - a - b]], y[t[3 - a - b]]
+    tx, ty = bx - ax, by - ay
+    length = np.hypot(tx, ty)
+    nx, ny = ty / length, -tx / length
+    flip = np.where(nx * (0.5 * (ax + bx) - cx) + ny * (0.5 * (ay + by) - cy) < 0, -1.0, 1.0)
+    nx, ny = nx * flip, ny * flip
+    points = (ax + 1j * ay)[:, None] + (tx + 1j * ty)[:, None] * _GS[None, :]
+    u = solution.potential
+    ua, ub = u[t[a]], u[t[b]]
+    E = np.broadcast_to(linear_E[:, None, :], (len(elements), EDGE_POINTS, 2))
+    V = ua[:, None] + (ub - ua)[:, None] * _GS[None, :]
+    ds = length[:, None] * _GW[None, :]
+    n_q = np.broadcast_to(np.stack([nx, ny], axis=1)[:, None, :], E.shape)
+    return points, ds, E, n_q, V
 
 
 def _curved_edge_quadrature(solution: Solution, elements: np.ndarray) -> list[tuple]:
-    """``_edge_quadrature`` of all three local edges of higher-order or curved elements: one basis at the
-    Gauss points of every edge together (a basis costs about as much for nine points as for three)."""
+    """``_linear_edge_quadrature``'s values on all three local edges of higher-order or curved elements: one basis
+    at the Gauss points of every edge together (a basis costs about as much for nine points as for three)."""
     problem = solution.problem
     mesh = problem.section.mesh
     starts = [_VERTICES[:, a] for a, _ in _EDGES]
@@ -225,7 +221,7 @@ def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sid
     facets, ws, qs, layer_w, layer_m = [], [], [], [], []
     if _is_linear(problem):
         linear_E = -_linear_gradient(mesh, solution.potential, elements)
-        edges = [_edge_quadrature(solution, elements, edge, linear_E) for edge in range(3)]
+        edges = [_linear_edge_quadrature(solution, elements, edge, linear_E) for edge in range(3)]
     else:
         edges = _curved_edge_quadrature(solution, elements)
     for edge in range(3):
@@ -503,9 +499,9 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0, helper: 
         halves = [sources[block], sources[~block]]
     else:
         halves = [sources[:0], sources]
-    helper = helper_call(add_elements, halves[0]) if halves[0].size else None
+    helping = helper_call(add_elements, halves[0]) if halves[0].size else None
     flux = add_elements(halves[1])[0]
-    shared = helper.result() if helper is not None else None
+    shared = helping.result() if helping is not None else None
     if shared is not None:
         flux += shared[0]
         summation.absorb(shared[1])
