@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import difflib
+import json
 import math
+import re
 import tomllib
 from dataclasses import dataclass
 from functools import lru_cache
@@ -212,6 +214,11 @@ def shipped_materials() -> dict[str, Material]:
     }
 
 
+def _toml_key(name: str) -> str:
+    """``name`` as a TOML table key: bare where TOML allows, else a quoted string (escapes, one line)."""
+    return name if re.fullmatch(r"[A-Za-z0-9_-]+", name) else json.dumps(name)
+
+
 def lookup_material(name: str, extra: Mapping[str, Material] | None = None) -> Material:
     """Find ``name`` among case-defined materials first, then the shipped table."""
     if extra and name in extra:
@@ -223,6 +230,6 @@ def lookup_material(name: str, extra: Mapping[str, Material] | None = None) -> M
     close = difflib.get_close_matches(name, known, n=3)
     hint = f"did you mean {', '.join(repr(c) for c in close)}? " if close else ""
     raise MaterialError(
-        f"unknown material {name!r}: {hint}define it under [materials.{name}] in the case file, "
+        f"unknown material {name!r}: {hint}define it under [materials.{_toml_key(name)}] in the case file, "
         f"or use one of: {', '.join(known)}"
     )

@@ -94,6 +94,9 @@ def test_gmsh_syntax_error_names_the_line(tmp_path, capsys):
         ('gap = "PTFE"', 'gap = "PTFE"\nslab = "PTFE"', r"regions\.slab: no physical surface 'slab'"),
         ('top = "1 kV"', 'top = "1 kV"\nlid = "2 kV"', r"electrodes\.lid: no physical curve or surface 'lid'"),
         ('gap = "PTFE"', 'gap = "PFTE"', r"unknown material 'PFTE'.*did you mean 'PTFE'"),
+        # a name TOML cannot take bare is shown quoted, as the table header must be written (one line)
+        ('gap = "PTFE"', 'gap = "my\\nfoil"', r"unknown material 'my\\nfoil': define it under "
+                                                  r"\[materials\.\"my\\nfoil\"\] in the case file"),
         ('gap = "PTFE"', 'gap = "bad"\n[materials.bad]\nrelative_permittivity = -2.0',
          r"material 'bad': relative permittivity -2\.0 must be a positive number"),
         ('gap = "PTFE"', 'gap = "bad"\n[materials.bad]\nrelative_permittivity = 0.5', r"below 1"),
