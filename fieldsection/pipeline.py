@@ -17,6 +17,7 @@ from scipy.spatial import cKDTree
 
 from .adapt import PassRecord, region_vertex_fields, wanted_element_sizes
 from .analysis import check_against_case, electrostatic_case, run_analysis
+from .blas_threads import one_blas_thread
 from .capacitance import CapacitanceResult, compute_capacitance
 from .case import Case
 from .certificate import SINGULAR, PeakCertificate, certify
@@ -89,6 +90,7 @@ class _Pass(_Computed):
     projector: Projector | None = None  # the recovery's projection on this mesh, for the next pass's indicator
 
 
+@one_blas_thread()
 def analyse(case: Case, on_stage: Callable[[str], None] | None = None) -> SectionResult:
     """Run every computing stage for ``case``; ``on_stage(name)`` is called as each stage starts."""
     seconds: dict[str, float] = {}

@@ -20,6 +20,7 @@ from typing import Callable, Iterator
 
 from jinja2 import Environment, FileSystemBytecodeCache, PackageLoader, StrictUndefined, select_autoescape
 
+from .blas_threads import one_blas_thread
 from .errors import ReportError, ReportFolderTaken
 from .figures_worker import start_drawing
 from .pipeline import SectionResult
@@ -103,6 +104,7 @@ def _json_default(value):
     raise TypeError(f"cannot store {type(value).__name__} in results.json")
 
 
+@one_blas_thread()
 def write_report(
     result: SectionResult,
     reports_dir: str | Path = "reports",
