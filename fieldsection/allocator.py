@@ -83,6 +83,19 @@ def _glibc() -> ctypes.CDLL | None:
         return None
 
 
+def give_back_free_memory() -> None:
+    """Return the heap's free pages to the system (glibc's ``malloc_trim(0)``; nothing off glibc).
+
+    Called just before a fork: the pages a fork finds free are otherwise shared copy-on-write, and the first write
+    to each, as either process reuses freed memory, copies it; a fresh page costs a cheaper fault. Measured on the
+    demo's superposition check (parent and helper each summing half of the sources): the parent's page faults fell
+    from about 37 000 to 26 000 after the analysis (check 0.80 -> 0.78 s), and from 28 000 to 15 000 in a process
+    that had freed more (a second check: 0.84-0.94 -> 0.70 s)."""
+    libc = _glibc()
+    if libc is not None:
+        libc.malloc_trim(ctypes.c_size_t(0))
+
+
 def _set(libc: ctypes.CDLL, trim: int, mmap: int) -> None:
     libc.mallopt(_M_MMAP_THRESHOLD, ctypes.c_int(min(mmap, ROOMY_MMAP_THRESHOLD)))
     libc.mallopt(_M_TRIM_THRESHOLD, ctypes.c_int(min(trim, 2**31 - 1)))

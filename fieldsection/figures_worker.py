@@ -28,6 +28,7 @@ from abc import ABC, abstractmethod
 from concurrent.futures import Future, ThreadPoolExecutor
 from typing import Any, Callable, Sequence
 
+from .allocator import give_back_free_memory
 from .errors import ReportError
 from .forked import die_with_parent, hold_forks_for, wait_for_background_threads
 
@@ -160,6 +161,7 @@ class _Child(Drawing):
         self._child = context.Process(target=_child, args=(child_end, jobs, self._queue, then), daemon=True,
                                       name="fieldsection-figures")
         gc.freeze()  # the child's collections leave the inherited objects alone: their pages stay shared
+        give_back_free_memory()  # free pages would be shared copy-on-write, and copied at the first write
         try:
             self._child.start()
         finally:

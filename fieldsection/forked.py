@@ -17,6 +17,8 @@ import sys
 import threading
 from typing import Any, Callable
 
+from .allocator import give_back_free_memory
+
 _background: list[threading.Thread] = []
 
 
@@ -51,6 +53,7 @@ def fork_child(body: Callable[[], None], *close_in_child: Any) -> int:
     A plain fork rather than ``multiprocessing.Process``, which refuses to start from a daemonic process (a Dask
     worker, a process pool's worker); the child needs none of its bookkeeping."""
     parent = os.getpid()
+    give_back_free_memory()  # free pages would be shared copy-on-write, and copied at the first write
     pid = os.fork()
     if pid == 0:
         code = 1
