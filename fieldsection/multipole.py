@@ -9,6 +9,7 @@ linear in the number of sources for a fixed set of probes. Used by ``superpositi
 
 from __future__ import annotations
 
+import copy
 from functools import lru_cache
 from math import comb
 
@@ -43,19 +44,14 @@ class LogPotentialSum:
         self.moments = np.zeros((MULTIPOLE_ORDER, n * n), dtype=complex)
         self.count = 0
 
-    def state(self) -> tuple:
-        """The sums so far, for ``absorb`` by a sum over other sources with the same probes and cells."""
-        return self.depth, self.direct, self.charge, self.moments, self.count
-
-    def absorb(self, state: tuple) -> None:
-        """Add the sums of another ``LogPotentialSum`` (its ``state()``) built on the same probes and sources' layout."""
-        depth, direct, charge, moments, count = state
-        if depth != self.depth or direct.shape != self.direct.shape:
-            raise ValueError("the sums absorbed were built on other probes or another quadtree")
-        self.direct += direct
-        self.charge += charge
-        self.moments += moments
-        self.count += count
+    def empty(self) -> "LogPotentialSum":
+        """A sum without sources on the same probes and quadtree. ``potential`` is linear in the sources, so the
+        potentials of sums over disjoint sources add up (a helper process sums half of them and sends back only
+        its potential at the probes)."""
+        other = copy.copy(self)
+        other.direct, other.charge, other.moments = (np.zeros_like(a) for a in (self.direct, self.charge, self.moments))
+        other.count = 0
+        return other
 
     def _cheapest_depth(self, where: np.ndarray, weight: float) -> int:
         """The finest level (2 .. 9) with the least estimated work: direct pairs of the probes' neighbourhoods

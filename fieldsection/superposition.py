@@ -63,8 +63,7 @@ LINE_PROBES = 300
 FACE_CLEARANCE = 3.0
 #: elements per chunk of the source loop (bounds the memory of the quadrature arrays)
 CHUNK = 100_000
-#: source elements from which a helper process sums half of the sources (below, the fork and the transfer of its
-#: sums cost more than they save)
+#: source elements from which a helper process sums half of the sources (below, the fork costs more than it saves)
 HELPER_ABOVE = 20_000
 HELPER_BLOCK = 256
 
@@ -473,47 +472,54 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0, helper: 
     centroids = mesh.p[:, mesh.t[:, sources]].mean(axis=1)
     if mirror is not None:
         centroids = np.hstack([centroids, _as_xy(mirror.reflect(centroids[0] + 1j * centroids[1]))])
-    summation = LogPotentialSum(points, drawn.min(axis=1), drawn.max(axis=1), centroids, per_element)
+    total = LogPotentialSum(points, drawn.min(axis=1), drawn.max(axis=1), centroids, per_element)
+    sides = _sides(problem, mirror)
 
-    def add(w, q, m=None):
+    def add(summation: LogPotentialSum, w, q, m=None):
         summation.add(w, q, m)
         if mirror is not None:
             summation.add(*mirror.images(w, q, m))
 
-    sides = _sides(problem, mirror)
-
-    def add_elements(elements: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """The sources of ``elements`` added in; (D.n flux per conductor, the sums' state)."""
+    def add_elements(summation: LogPotentialSum, elements: np.ndarray) -> np.ndarray:
+        """The sources of ``elements`` added into ``summation``; the D.n flux per conductor."""
         flux = np.zeros(len(problem.conductors))
         for first in range(0, elements.size, CHUNK):  # chunks of elements, not a loop over them
             (charge_w, charge_q), (layer_w, layer_m) = _sources(solution, bound_sign, elements[first:first + CHUNK],
                                                                 sides, flux)
-            add(charge_w, charge_q)
-            add(layer_w, None, layer_m)
-        return flux, summation.state()
+            add(summation, charge_w, charge_q)
+            add(summation, layer_w, None, layer_m)
+        return flux
 
-    # on a large mesh a helper process sums the first half of the elements' sources meanwhile (its sums are added
-    # to these); without one, or if it fails, this process sums them too
+    def share(elements: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
+        """A helper's share: the sources of ``elements`` summed apart; (D.n flux, V at the probes, sources)."""
+        own = total.empty()
+        flux = add_elements(own, elements)
+        return flux, own.potential(), own.count
+
+    # on a large mesh a helper process sums the first half of the elements' sources meanwhile and sends back its
+    # potential at the probes (which adds to ours); without one, or if it fails, this process sums them too
     if helper and sources.size >= HELPER_ABOVE:  # alternate blocks of elements: each half spread over the section
         block = (np.arange(sources.size) // HELPER_BLOCK) % 2 == 0
         halves = [sources[block], sources[~block]]
     else:
         halves = [sources[:0], sources]
-    helping = helper_call(add_elements, halves[0]) if halves[0].size else None
-    flux = add_elements(halves[1])[0]
-    shared = helping.result() if helping is not None else None
-    if shared is not None:
-        flux += shared[0]
-        summation.absorb(shared[1])
-    elif halves[0].size:
-        flux += add_elements(halves[0])[0]
+    helping = helper_call(share, halves[0]) if halves[0].size else None
+    flux = add_elements(total, halves[1])
     reaction = problem.stiffness @ solution.potential
     free = np.zeros(len(problem.conductors))
     for k, conductor in enumerate(problem.conductors):  # the electrodes' free charge at their DOFs
         where = problem.basis.doflocs[:, conductor.dofs]
-        add(where[0] + 1j * where[1], reaction[conductor.dofs])
+        add(total, where[0] + 1j * where[1], reaction[conductor.dofs])
         free[k] = reaction[conductor.dofs].sum()
-    rebuilt = summation.potential()
+    rebuilt = total.potential()  # ours, while the helper finishes its own
+    sources_summed = total.count
+    shared = helping.result() if helping is not None else None
+    if shared is None and halves[0].size:  # the helper failed: its share here
+        shared = share(halves[0])
+    if shared is not None:
+        flux += shared[0]
+        rebuilt += shared[1]
+        sources_summed += shared[2]
 
     difference = rebuilt - fe
     n_probe = len(probe_points)
@@ -537,5 +543,5 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0, helper: 
         True, note, float(relative.max()), span, constant, probe_points, tuple(probe_names), fe[:n_probe],
         rebuilt[:n_probe], line, line_points, fe[n_probe:], rebuilt[n_probe:], per_region,
         {c.name: float(q) for c, q in zip(problem.conductors, free)},
-        {c.name: float(q) for c, q in zip(problem.conductors, flux)}, summation.count,
+        {c.name: float(q) for c, q in zip(problem.conductors, flux)}, sources_summed,
         time.perf_counter() - start)
