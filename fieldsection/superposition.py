@@ -369,13 +369,14 @@ def _potential_at(solution: Solution, ref: np.ndarray, cells: np.ndarray) -> np.
     return sum(u[basis.element_dofs[k, cells]] * basis.elem.lbasis(ref, k)[0] for k in range(basis.Nbfun))
 
 
-def _affine(mesh) -> np.ndarray:
-    """Elements whose mapping is affine (every mid-edge geometry node at its chord's midpoint)."""
+def _affine(mesh, elements: np.ndarray) -> np.ndarray:
+    """Whether the mapping of each of ``elements`` is affine (every mid-edge geometry node at its chord's midpoint)."""
     if mesh.doflocs.shape[1] == mesh.nvertices:
-        return np.ones(mesh.nelements, dtype=bool)
-    middle = mesh.doflocs[:, mesh.nvertices + mesh.t2f]  # (2, 3, ne)
-    chord = np.stack([0.5 * (mesh.p[:, mesh.t[a]] + mesh.p[:, mesh.t[b]]) for a, b in _EDGES], axis=1)
-    size = np.abs(mesh.p[:, mesh.t[1]] - mesh.p[:, mesh.t[0]]).max(axis=0)
+        return np.ones(elements.size, dtype=bool)
+    t = mesh.t[:, elements]
+    middle = mesh.doflocs[:, mesh.nvertices + mesh.t2f[:, elements]]  # (2, 3, n)
+    chord = np.stack([0.5 * (mesh.p[:, t[a]] + mesh.p[:, t[b]]) for a, b in _EDGES], axis=1)
+    size = np.abs(mesh.p[:, t[1]] - mesh.p[:, t[0]]).max(axis=0)
     return (np.abs(middle - chord).max(axis=(0, 1)) <= 1e-9 * size)
 
 
@@ -425,7 +426,7 @@ def _line(solution: Solution, tree, size) -> tuple[np.ndarray, np.ndarray, np.nd
         points = ends[0] + s[:, None] * (ends[1] - ends[0])
         cells, ref = _containing_elements(mesh, points)
         ok = cells >= 0
-        ok[ok] &= drawn[cells[ok]] & _affine(mesh)[cells[ok]]  # (in an affine element the corner triangle's
+        ok[ok] &= drawn[cells[ok]] & _affine(mesh, cells[ok])  # (in an affine element the corner triangle's
         if ok.any():                                             # barycentric coordinates are the reference ones)
             distance, _ = tree.query(points[ok])
             ok[np.flatnonzero(ok)] &= distance >= FACE_CLEARANCE * size[cells[ok]]
