@@ -204,14 +204,21 @@ def _conduction(entry: Mapping[str, Any], where: str) -> dict[str, Any]:
 
 
 @lru_cache(maxsize=1)
+def _shipped_table() -> dict[str, Any]:
+    text = resources.files("fieldsection").joinpath("data/materials.toml").read_text(encoding="utf-8")
+    return tomllib.loads(text)
+
+
+@lru_cache(maxsize=None)
+def _shipped_material(name: str) -> Material:
+    """One entry of the shipped table, read when first asked for (a few entries give units that only pint
+    converts, and loading pint costs a fifth of a second)."""
+    return material_from_mapping(name, _shipped_table()[name], f"shipped materials table [{name}]")
+
+
 def shipped_materials() -> dict[str, Material]:
     """The materials table shipped with the package, by name."""
-    text = resources.files("fieldsection").joinpath("data/materials.toml").read_text(encoding="utf-8")
-    table = tomllib.loads(text)
-    return {
-        name: material_from_mapping(name, entry, f"shipped materials table [{name}]")
-        for name, entry in table.items()
-    }
+    return {name: _shipped_material(name) for name in _shipped_table()}
 
 
 def _toml_key(name: str) -> str:
@@ -223,9 +230,9 @@ def lookup_material(name: str, extra: Mapping[str, Material] | None = None) -> M
     """Find ``name`` among case-defined materials first, then the shipped table."""
     if extra and name in extra:
         return extra[name]
-    table = shipped_materials()
+    table = _shipped_table()
     if name in table:
-        return table[name]
+        return _shipped_material(name)
     known = sorted(set(table) | set(extra or {}))
     close = difflib.get_close_matches(name, known, n=3)
     hint = f"did you mean {', '.join(repr(c) for c in close)}? " if close else ""

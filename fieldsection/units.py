@@ -71,7 +71,7 @@ def to_si(value: Any, kind: str, what: str) -> float:
     if not isinstance(value, str):
         raise UnitError(f"{what}: expected a number or a string like '2 mm', got {value!r}")
     magnitude, unit_text = _split_quantity(value, kind, what)
-    if not unit_text:
+    if not unit_text or unit_text == SI_UNITS[kind]:  # SI already ("1e-14 S/m"): no need to load pint for it
         return _finite(magnitude, what)
     pint = _import_pint()
     # "mil" is a thousandth of an inch on circuit boards and datasheets ("10 mil", "500 V/mil"); pint reads it

@@ -45,3 +45,18 @@ def test_pint_comes_without_dask_and_dask_stays_importable():
                            "assert to_si('1 kV', 'voltage', 'x') == 1000.0", "print('dask' in sys.modules)",
                            "import dask", "print(dask.__name__)")
     assert out.split() == ["False", "dask"]
+
+
+def test_values_in_si_units_and_shipped_materials_need_no_pint():
+    # a value written in the SI unit of its kind is that number; a shipped material is read when asked for, so
+    # looking up air (whose conductivity is given in S/m) loads no pint; a unit to convert still does
+    out = run_fresh_python("import sys", "from fieldsection.units import to_si",
+                           "from fieldsection import lookup_material",
+                           "assert to_si('1e-14 S/m', 'conductivity', 'x') == 1e-14",
+                           "assert to_si('2.5 V/m', 'field', 'x') == 2.5",
+                           "air = lookup_material('air')",
+                           "print('pint' in sys.modules, air.conductivity, air.relative_permittivity)",
+                           "assert to_si('3 kV/mm', 'field', 'x') == 3e6",
+                           "print('pint' in sys.modules)")
+    # air: relative permittivity 1.000536 and conductivity 1e-14 S/m as the shipped table gives them
+    assert out.split() == ["False", "1e-14", "1.000536", "True"]
