@@ -72,8 +72,11 @@ INDICATOR_TOLERANCE = 1e-6
 def jacobi_scaled(matrix: sp.spmatrix) -> tuple[sp.csr_matrix, np.ndarray]:
     """(D^-1/2 M D^-1/2, D^-1/2) of a symmetric positive definite ``matrix`` M with diagonal D: what
     ``conjugate_gradients`` solves with, made once per matrix."""
-    scale = 1.0 / np.sqrt(matrix.diagonal())
-    return sp.csr_matrix(sp.diags(scale) @ matrix @ sp.diags(scale)), scale
+    scaled = sp.csr_matrix(matrix, copy=True)
+    scale = 1.0 / np.sqrt(scaled.diagonal())
+    rows = np.repeat(np.arange(scaled.shape[0]), np.diff(scaled.indptr))
+    scaled.data *= scale[rows] * scale[scaled.indices]  # entry by entry: no two sparse products
+    return scaled, scale
 
 
 def conjugate_gradients(scaled: sp.spmatrix, scale: np.ndarray, rhs: np.ndarray,
@@ -134,9 +137,11 @@ class _Projector:
         # at the reference points are the same in every element (the mapping changes its gradient only)
         self.phi = np.array([np.asarray(basis.basis[j][0])[0] for j in range(basis.Nbfun)])
         self.dx = basis.dx
-        local = np.einsum("iq,jq,nq->nij", self.phi, self.phi, basis.dx)  # element mass matrices
-        rows = np.broadcast_to(self.glued.T[:, :, None], local.shape)
-        cols = np.broadcast_to(self.glued.T[:, None, :], local.shape)
+        # element mass matrices (i, j, element) as one matrix product over the quadrature points
+        products = (self.phi[:, None, :] * self.phi[None, :, :]).reshape(-1, self.phi.shape[1])
+        local = (products @ basis.dx.T).reshape(basis.Nbfun, basis.Nbfun, -1)
+        rows = np.broadcast_to(self.glued[:, None, :], local.shape)
+        cols = np.broadcast_to(self.glued[None, :, :], local.shape)
         mass = sp.csr_matrix((local.ravel(), (rows.ravel(), cols.ravel())), shape=(self.size, self.size))
         self._scaled_mass, self._scale = jacobi_scaled(mass)  # once: the case's field and the units' use it
         eps = weighted_permittivity(basis, section, problem.relative_permittivity, problem.axisymmetric)
