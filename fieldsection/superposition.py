@@ -96,33 +96,32 @@ class SuperpositionCheck:
 
 
 # ------------------------------------------------------------------------------------------ sources
-def _linear_edge_quadrature(solution: Solution, elements: np.ndarray, edge: int, linear_E: np.ndarray):
-    """On local edge ``edge`` of linear ``elements`` on straight triangles: Gauss points (n, q) complex, weights
-    ds (n, q), E (n, q, 2), outward unit normal (n, q, 2), V (n, q); ``linear_E`` (n, 2): the elements' constant E."""
+def _linear_edge_quadrature(solution: Solution, elements: np.ndarray, linear_E: np.ndarray) -> list[tuple]:
+    """On each local edge of linear ``elements`` on straight triangles: Gauss points w (n, q) complex, weights
+    ds (n, q), the outward normal component of E (n, 1), the outward unit normal as a complex number (n, 1) and
+    V (n, q); ``linear_E`` (n, 2): the elements' constant E. Each corner is gathered once for the three edges."""
     mesh = solution.problem.section.mesh
-    a, b = _EDGES[edge]
     t = mesh.t[:, elements]
-    x, y = mesh.p[0], mesh.p[1]  # one coordinate row at a time: 2D fancy indexing is several times slower
-    ax, ay, bx, by = x[t[a]], y[t[a]], x[t[b]], y[t[b]]
-    cx, cy = x[t[3 - a - b]], y[t[3 - a - b]]
-    tx, ty = bx - ax, by - ay
-    length = np.hypot(tx, ty)
-    nx, ny = ty / length, -tx / length
-    flip = np.where(nx * (0.5 * (ax + bx) - cx) + ny * (0.5 * (ay + by) - cy) < 0, -1.0, 1.0)
-    nx, ny = nx * flip, ny * flip
-    points = (ax + 1j * ay)[:, None] + (tx + 1j * ty)[:, None] * _GS[None, :]
-    u = solution.potential
-    ua, ub = u[t[a]], u[t[b]]
-    E = np.broadcast_to(linear_E[:, None, :], (len(elements), EDGE_POINTS, 2))
-    V = ua[:, None] + (ub - ua)[:, None] * _GS[None, :]
-    ds = length[:, None] * _GW[None, :]
-    n_q = np.broadcast_to(np.stack([nx, ny], axis=1)[:, None, :], E.shape)
-    return points, ds, E, n_q, V
+    x, y, u = mesh.p[0], mesh.p[1], solution.potential  # one row at a time: 2D fancy indexing is several times slower
+    corners = [x[t[k]] + 1j * y[t[k]] for k in range(3)]
+    values = [u[t[k]] for k in range(3)]
+    E = linear_E[:, 0] + 1j * linear_E[:, 1]
+    out = []
+    for a, b in _EDGES:
+        start, tangent = corners[a], corners[b] - corners[a]
+        length = np.abs(tangent)
+        normal = -1j * tangent / length  # the tangent turned clockwise, then pointed away from the third corner
+        normal[(np.conj(normal) * (start + 0.5 * tangent - corners[3 - a - b])).real < 0] *= -1
+        points = start[:, None] + tangent[:, None] * _GS[None, :]
+        V = values[a][:, None] + (values[b] - values[a])[:, None] * _GS[None, :]
+        out.append((points, length[:, None] * _GW[None, :], (E * np.conj(normal)).real[:, None], normal[:, None], V))
+    return out
 
 
 def _curved_edge_quadrature(solution: Solution, elements: np.ndarray) -> list[tuple]:
-    """``_linear_edge_quadrature``'s values on all three local edges of higher-order or curved elements: one basis
-    at the Gauss points of every edge together (a basis costs about as much for nine points as for three)."""
+    """``_linear_edge_quadrature``'s values on all three local edges of higher-order or curved elements (E.n and the
+    normal per Gauss point, (n, q)): one basis at the Gauss points of every edge together (a basis costs about as
+    much for nine points as for three)."""
     problem = solution.problem
     mesh = problem.section.mesh
     starts = [_VERTICES[:, a] for a, _ in _EDGES]
@@ -143,9 +142,9 @@ def _curved_edge_quadrature(solution: Solution, elements: np.ndarray) -> list[tu
         normal = np.stack([tangent[1], -tangent[0]]) / length
         xe = x[:, :, part]
         sign = np.sign(np.einsum("inq,in->nq", normal, xe.mean(axis=2) - centroid))[:, :1]
-        normal = np.moveaxis(normal * sign[None], 0, -1)
-        out.append((xe[0] + 1j * xe[1], length * _GW[None, :], np.moveaxis(-grad[:, :, part], 0, -1), normal,
-                    V[:, part]))
+        normal = normal * sign[None]
+        e_n = -np.einsum("inq,inq->nq", grad[:, :, part], normal)
+        out.append((xe[0] + 1j * xe[1], length * _GW[None, :], e_n, normal[0] + 1j * normal[1], V[:, part]))
     return out
 
 
@@ -219,13 +218,11 @@ def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sid
     eps = epsilon_0 * problem.relative_permittivity[elements]
     facets, ws, qs, layer_w, layer_m = [], [], [], [], []
     if _is_linear(problem):
-        linear_E = -_linear_gradient(mesh, solution.potential, elements)
-        edges = [_linear_edge_quadrature(solution, elements, edge, linear_E) for edge in range(3)]
+        edges = _linear_edge_quadrature(solution, elements, -_linear_gradient(mesh, solution.potential, elements))
     else:
         edges = _curved_edge_quadrature(solution, elements)
     for edge in range(3):
-        w, ds, E, n, V = edges[edge]
-        e_n = np.einsum("nqi,nqi->nq", E, n)
+        w, ds, e_n, normal, V = edges[edge]  # e_n and normal (n, q), or (n, 1) where constant along the edge
         bound = fields_P_sign * (eps - epsilon_0)[:, None] * e_n * ds  # P . n_out
         c = conductor[edge, elements]
         on_conductor = c >= 0
@@ -238,7 +235,7 @@ def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sid
         qs.append(bound[keep])
         layer = keep & (boundary[edge, elements] | on_conductor)
         layer_w.append(w[layer].ravel())
-        layer_m.append((epsilon_0 * V * ds * (n[..., 0] + 1j * n[..., 1]))[layer].ravel())
+        layer_m.append((epsilon_0 * V[layer] * ds[layer] * normal[layer]).ravel())
     facets = np.concatenate(facets)
     # the first side of each facet in the chunk collects the bound charge of both (a scatter into a per-facet
     # table: no sort)
@@ -310,9 +307,8 @@ def _mirror(problem) -> _Mirror | None:
 
 
 # ------------------------------------------------------------------------------------------- probes
-def _face_tree(problem) -> tuple[cKDTree, np.ndarray]:
-    """KD-tree of points along every face (a facet between regions, on a conductor or on the boundary), and
-    each element's size (longest corner edge)."""
+def _face_tree(problem) -> cKDTree:
+    """KD-tree of points along every face (a facet between regions, on a conductor or on the boundary)."""
     section = problem.section
     mesh = section.mesh
     region = section.region_of_element
@@ -323,12 +319,27 @@ def _face_tree(problem) -> tuple[cKDTree, np.ndarray]:
     ends = mesh.p[:, mesh.facets[:, face]]
     points = np.concatenate([ends[:, 0].T, ends[:, 1].T, *(ends[:, 0].T + s * (ends[:, 1] - ends[:, 0]).T
                                                            for s in (0.25, 0.5, 0.75))])
-    t = mesh.t
-    sides = [np.hypot(*(mesh.p[:, t[i]] - mesh.p[:, t[j]])) for i, j in _EDGES]
-    return cKDTree(points), np.max(sides, axis=0)
+    return cKDTree(points)
 
 
-def _probe_elements(problem, tree, size) -> tuple[np.ndarray, list[str]]:
+def _size(mesh, elements: np.ndarray) -> np.ndarray:
+    """The size of each of ``elements``: its longest corner edge."""
+    t, x, y = mesh.t[:, elements], mesh.p[0], mesh.p[1]
+    return np.max([np.hypot(x[t[i]] - x[t[j]], y[t[i]] - y[t[j]]) for i, j in _EDGES], axis=0)
+
+
+def _vertex_box(mesh, elements: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The lower and upper corners of the box around the vertices of ``elements`` (a mask); the vertices marked
+    in a mask, not sorted out by np.unique (a second at a million elements)."""
+    if elements.all():
+        return mesh.p.min(axis=1), mesh.p.max(axis=1)
+    used = np.zeros(mesh.p.shape[1], dtype=bool)
+    used[mesh.t[:, elements]] = True
+    xy = mesh.p[:, used]
+    return xy.min(axis=1), xy.max(axis=1)
+
+
+def _probe_elements(problem, tree) -> tuple[np.ndarray, list[str]]:
     """Up to ``PROBES_PER_REGION`` elements of each dielectric region, drawn at random with chances in proportion
     to their areas (so the probes spread over the region rather than crowd where the mesh is fine), at least
     ``FACE_CLEARANCE`` element sizes from any face; in a layer too thin for that, its most central elements."""
@@ -346,7 +357,7 @@ def _probe_elements(problem, tree, size) -> tuple[np.ndarray, list[str]]:
         if mine.size > 50 * PROBES_PER_REGION:  # a random subset is enough to choose from
             mine = np.unique(rng.choice(mine, size=50 * PROBES_PER_REGION, p=areas[mine] / areas[mine].sum()))
         distance, _ = tree.query(mesh.p[:, mesh.t[:, mine]].mean(axis=1).T)
-        ratio = distance / size[mine]
+        ratio = distance / _size(mesh, mine)
         clear = mine[ratio >= FACE_CLEARANCE]
         if clear.size == 0:  # a thin layer: the most central elements
             clear = mine[np.argsort(ratio)[-min(20, mine.size):]]
@@ -387,13 +398,16 @@ def _containing_elements(mesh, points: np.ndarray, candidates: int = 12,
     boxes the line's box touches are searched (a thin strip of the mesh, not all of it), and of those only
     the ``allowed`` ones (a bool per element) when given."""
     low, high = points.min(axis=0), points.max(axis=0)
-    x, y = mesh.p[0][mesh.t], mesh.p[1][mesh.t]  # (3, ne)
-    crossing = np.flatnonzero((x.min(axis=0) <= high[0]) & (x.max(axis=0) >= low[0])
-                              & (y.min(axis=0) <= high[1]) & (y.max(axis=0) >= low[1])
+    x, y, t = mesh.p[0], mesh.p[1], mesh.t
+    # an element's box meets the line's box where, for each of that box's four sides, some corner lies on its
+    # inner side (flags per vertex, then gathered: cheaper than each element's coordinates and their extremes)
+    crossing = np.flatnonzero((x >= low[0])[t].any(axis=0) & (x <= high[0])[t].any(axis=0)
+                              & (y >= low[1])[t].any(axis=0) & (y <= high[1])[t].any(axis=0)
                               & (True if allowed is None else allowed))
     if crossing.size == 0:
         return np.full(len(points), -1), np.zeros((2, len(points)))
-    centroid = np.stack([x[:, crossing].mean(axis=0), y[:, crossing].mean(axis=0)], axis=1)
+    corners = mesh.t[:, crossing]
+    centroid = np.stack([mesh.p[0][corners].mean(axis=0), mesh.p[1][corners].mean(axis=0)], axis=1)
     _, near = cKDTree(centroid).query(points, k=min(candidates, crossing.size))
     near = crossing[near.reshape(len(points), -1)]
     t = mesh.t[:, near]  # (3, n, k)
@@ -409,7 +423,7 @@ def _containing_elements(mesh, points: np.ndarray, candidates: int = 12,
     return cells, np.stack([l1[rows, first], l2[rows, first]])
 
 
-def _line(solution: Solution, tree, size) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def _line(solution: Solution, tree) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Points in the insulation, clear of the faces, along the horizontal or the vertical line through the middle
     of the drawn section, whichever sees the larger change of the FE potential: (start and end, points, their
     elements, reference coordinates)."""
@@ -417,8 +431,7 @@ def _line(solution: Solution, tree, size) -> tuple[np.ndarray, np.ndarray, np.nd
     section = problem.section
     mesh = section.mesh
     drawn = problem.dielectric & ~section.exterior
-    xy = mesh.p[:, np.unique(mesh.t[:, ~section.exterior])]
-    low, high = xy.min(axis=1), xy.max(axis=1)
+    low, high = _vertex_box(mesh, ~section.exterior)
     middle = 0.5 * (low + high)
     s = np.linspace(0.0, 1.0, LINE_PROBES + 2)[1:-1]
     best = None
@@ -429,7 +442,7 @@ def _line(solution: Solution, tree, size) -> tuple[np.ndarray, np.ndarray, np.nd
         ok[ok] &= drawn[cells[ok]] & _affine(mesh, cells[ok])  # (in an affine element the corner triangle's
         if ok.any():                                             # barycentric coordinates are the reference ones)
             distance, _ = tree.query(points[ok])
-            ok[np.flatnonzero(ok)] &= distance >= FACE_CLEARANCE * size[cells[ok]]
+            ok[np.flatnonzero(ok)] &= distance >= FACE_CLEARANCE * _size(mesh, cells[ok])
         change = float(np.ptp(_potential_at(solution, ref[:, ok], cells[ok]))) if ok.sum() > 1 else -1.0
         if best is None or change > best[0]:
             best = (change, ends, points[ok], cells[ok], ref[:, ok])
@@ -451,26 +464,28 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0, helper: 
     except _NotChecked as refusal:
         return SuperpositionCheck(False, str(refusal))
     mesh = section.mesh
-    tree, size = _face_tree(problem)
-    probe_cells, probe_names = _probe_elements(problem, tree, size)
+    tree = _face_tree(problem)
+    probe_cells, probe_names = _probe_elements(problem, tree)
     centre = np.array([[1 / 3], [1 / 3]])
     if _is_linear(problem):
         probe_points = mesh.p[:, mesh.t[:, probe_cells]].mean(axis=1).T
     else:
         probe_points = problem.basis.mapping.F(centre, tind=probe_cells)[:, :, 0].T
-    line, line_points, line_cells, line_ref = _line(solution, tree, size)
+    line, line_points, line_cells, line_ref = _line(solution, tree)
     points = np.concatenate([probe_points, line_points])
     cells = np.concatenate([probe_cells, line_cells])
     ref = np.concatenate([np.repeat(centre, probe_cells.size, axis=1), line_ref], axis=1)
     fe = _potential_at(solution, ref, cells)
 
-    sources = np.flatnonzero(problem.dielectric & ~section.exterior)
-    (x0, x1), (y0, y1) = ((c[mesh.t[:, sources]].min(), c[mesh.t[:, sources]].max()) for c in mesh.p)
+    drawn_dielectric = problem.dielectric & ~section.exterior
+    sources = np.flatnonzero(drawn_dielectric)
+    (x0, y0), (x1, y1) = _vertex_box(mesh, drawn_dielectric)
     drawn = np.array([[x0, x0, x1, x1], [y0, y1, y0, y1]])  # the corners of the sources' bounding box
     if mirror is not None:  # the images lie in the mirrored half
         drawn = np.hstack([drawn, _as_xy(mirror.reflect(drawn[0] + 1j * drawn[1]))])
     per_element = 1.5 * EDGE_POINTS + (0 if _is_linear(problem) else 6)  # sources per element (a facet per side pair)
-    centroids = mesh.p[:, mesh.t[:, sources]].mean(axis=1)
+    corners = mesh.t[:, sources]
+    centroids = np.stack([mesh.p[0][corners].mean(axis=0), mesh.p[1][corners].mean(axis=0)])
     if mirror is not None:
         centroids = np.hstack([centroids, _as_xy(mirror.reflect(centroids[0] + 1j * centroids[1]))])
     total = LogPotentialSum(points, drawn.min(axis=1), drawn.max(axis=1), centroids, per_element)
