@@ -57,9 +57,11 @@ class LogPotentialSum:
         """The finest level (2 .. 9) with the least estimated work: direct pairs of the probes' neighbourhoods
         (from where the sources will lie) against the expansions' work, ~ 4^level cells x order^2."""
         best, cost = 2, np.inf
-        for level in range(2, 10):  # eight levels, not a loop over the mesh
+        finest = 9
+        fine_i, fine_j = self._ij(where[0], where[1], finest)  # each coarser level's cells by a shift of these
+        for level in range(2, finest + 1):  # eight levels, not a loop over the mesh
             n = 2 ** level
-            i, j = self._ij(where[0], where[1], level)
+            i, j = fine_i >> (finest - level), fine_j >> (finest - level)
             count = np.bincount(i * n + j, minlength=n * n) * weight
             pi, pj = self._ij(self.z.real, self.z.imag, level)
             pairs = 0.0

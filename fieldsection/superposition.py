@@ -177,22 +177,31 @@ def _interior_quadrature(solution: Solution, elements: np.ndarray):
     return x[0] + 1j * x[1], (eps - epsilon_0)[:, None] * divergence * dx
 
 
-def _sides(problem, mirror: "_Mirror | None" = None):
-    """Per (local edge, element): conductor index on that side (-1 none), whether it is on the boundary of
-    the drawn dielectric (and not on the mirror line, which is no boundary of the mirrored whole), whether it
-    faces the mapped exterior (the open-space circle)."""
+def _conductor_sides(problem) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Per conductor, its faces' dielectric sides: (local edge, element) of each."""
+    t2f = problem.section.mesh.t2f  # (3, ne), local edges in the order of fields._EDGES
+    out = []
+    for c in problem.conductors:
+        element = np.asarray(c.facet_dielectric_element, dtype=np.int64)
+        out.append((np.argmax(t2f[:, element] == np.asarray(c.facets)[None, :], axis=0), element))
+    return out
+
+
+def _sides(problem, conductor_sides, mirror: "_Mirror | None", elements: np.ndarray):
+    """Per local edge of ``elements`` (ascending), each (3, n): the conductor index on that side (-1 none), whether
+    it is on the boundary of the drawn dielectric (and not on the mirror line, which is no boundary of the
+    mirrored whole), whether it faces the mapped exterior (the open-space circle). Made per chunk of elements,
+    so that a helper process makes those of its own half."""
     section = problem.section
     mesh = section.mesh
-    ne = mesh.nelements
-    t2f = mesh.t2f  # (3, ne), local edges in the order of fields._EDGES
-    f2t = mesh.f2t
-    conductor = np.full((3, ne), -1, dtype=np.int64)
-    element_ids = np.arange(ne)
-    for index, c in enumerate(problem.conductors):
-        element = np.asarray(c.facet_dielectric_element, dtype=np.int64)
-        local = np.argmax(t2f[:, element] == np.asarray(c.facets)[None, :], axis=0)  # the facet's local edge
-        conductor[local, element] = index
-    other = np.where(f2t[0, t2f] == element_ids[None, :], f2t[1, t2f], f2t[0, t2f])  # (3, ne)
+    t2f = mesh.t2f[:, elements]
+    conductor = np.full(t2f.shape, -1, dtype=np.int64)
+    for index, (local, element) in enumerate(conductor_sides):
+        where = np.minimum(np.searchsorted(elements, element), elements.size - 1)
+        mine = elements[where] == element
+        conductor[local[mine], where[mine]] = index
+    first, second = mesh.f2t[0, t2f], mesh.f2t[1, t2f]
+    other = np.where(first == elements[None, :], second, first)
     exterior = section.exterior
     inside = problem.dielectric & ~exterior
     has_other = other >= 0
@@ -200,21 +209,23 @@ def _sides(problem, mirror: "_Mirror | None" = None):
     faces_exterior = has_other & exterior[np.maximum(other, 0)]
     boundary = boundary & ~faces_exterior
     if mirror is not None:
-        ends = mesh.p[:, mesh.facets[:, t2f]]  # (2, 2 ends, 3, ne)
-        on_line = mirror.on_line(ends[0, 0] + 1j * ends[1, 0]) & mirror.on_line(ends[0, 1] + 1j * ends[1, 1])
+        ends = mesh.facets[:, t2f]  # (2 ends, 3, n)
+        x, y = mesh.p[0], mesh.p[1]
+        on_line = mirror.on_line(x[ends[0]] + 1j * y[ends[0]]) & mirror.on_line(x[ends[1]] + 1j * y[ends[1]])
         boundary &= ~on_line
         conductor = np.where(on_line, -1, conductor)  # (its charges cancel against their images, or are images)
     return conductor, boundary, faces_exterior
 
 
-def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sides, free_totals: np.ndarray):
+def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, conductor_sides, mirror,
+             free_totals: np.ndarray):
     """The sources of one chunk of elements: (positions, line charges q in C/m) and (positions, double-layer
     moments m). The two sides of a facet inside the chunk share their Gauss points (every local edge runs from
     the lower global vertex to the higher, as scikit-fem sorts each element's vertices), so their bound charges
     are added into one source there."""
     problem = solution.problem
     mesh = problem.section.mesh
-    conductor, boundary, faces_exterior = sides
+    conductor, boundary, faces_exterior = _sides(problem, conductor_sides, mirror, elements)
     eps = epsilon_0 * problem.relative_permittivity[elements]
     facets, ws, qs, layer_w, layer_m = [], [], [], [], []
     if _is_linear(problem):
@@ -224,16 +235,16 @@ def _sources(solution: Solution, fields_P_sign: float, elements: np.ndarray, sid
     for edge in range(3):
         w, ds, e_n, normal, V = edges[edge]  # e_n and normal (n, q), or (n, 1) where constant along the edge
         bound = fields_P_sign * (eps - epsilon_0)[:, None] * e_n * ds  # P . n_out
-        c = conductor[edge, elements]
+        c = conductor[edge]
         on_conductor = c >= 0
         if on_conductor.any():  # the integral of D . n into the dielectric, reported beside the reaction charges
             free = -eps[on_conductor, None] * e_n[on_conductor] * ds[on_conductor]
             free_totals += np.bincount(c[on_conductor], free.sum(axis=1), len(free_totals))
-        keep = ~faces_exterior[edge, elements]
+        keep = ~faces_exterior[edge]
         facets.append(mesh.t2f[edge, elements][keep])
         ws.append(w[keep])
         qs.append(bound[keep])
-        layer = keep & (boundary[edge, elements] | on_conductor)
+        layer = keep & (boundary[edge] | on_conductor)
         layer_w.append(w[layer].ravel())
         layer_m.append((epsilon_0 * V[layer] * ds[layer] * normal[layer]).ravel())
     facets = np.concatenate(facets)
@@ -489,7 +500,7 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0, helper: 
     if mirror is not None:
         centroids = np.hstack([centroids, _as_xy(mirror.reflect(centroids[0] + 1j * centroids[1]))])
     total = LogPotentialSum(points, drawn.min(axis=1), drawn.max(axis=1), centroids, per_element)
-    sides = _sides(problem, mirror)
+    conductor_sides = _conductor_sides(problem)
 
     def add(summation: LogPotentialSum, w, q, m=None):
         summation.add(w, q, m)
@@ -501,7 +512,7 @@ def check_superposition(solution: Solution, *, bound_sign: float = 1.0, helper: 
         flux = np.zeros(len(problem.conductors))
         for first in range(0, elements.size, CHUNK):  # chunks of elements, not a loop over them
             (charge_w, charge_q), (layer_w, layer_m) = _sources(solution, bound_sign, elements[first:first + CHUNK],
-                                                                sides, flux)
+                                                                conductor_sides, mirror, flux)
             add(summation, charge_w, charge_q)
             add(summation, layer_w, None, layer_m)
         return flux
