@@ -104,22 +104,24 @@ class LogPotentialSum:
         m = None if m is None else m[order]
         self.charge += np.bincount(cells, q, n * n)
         zeta = (w - self._centre(i, j, level)) / size
-        # term k: q zeta^k / k - (m / size) zeta^(k - 1), summed over each cell's run of sources; one term at a
-        # time (a few arrays of the sources' size, not one per term)
+        # term k: (sum of q zeta^k) / k - sum of (m / size) zeta^(k - 1), each sum over a cell's run of sources
+        # (the 1/k once per cell, not per source); one term at a time: a few arrays of the sources' size, not one
+        # per term
         first = np.flatnonzero(np.r_[True, cells[1:] != cells[:-1]])
         target = cells[first]
-        power = zeta * q  # q zeta^k, built up term by term in place
+        power = zeta * q if charged else None  # q zeta^k, built up term by term in place
         shifted = None if m is None else m / size  # (m / size) zeta^(k - 1)
-        term = np.empty_like(zeta)
         for k in range(1, MULTIPOLE_ORDER + 1):
-            if k > 1:
-                power *= zeta
-            np.multiply(power, 1.0 / k, out=term)
+            moment = np.zeros(target.size, dtype=complex)
+            if power is not None:
+                if k > 1:
+                    power *= zeta
+                moment += np.add.reduceat(power, first) / k
             if shifted is not None:
                 if k > 1:
                     shifted *= zeta
-                term -= shifted
-            self.moments[k - 1, target] += np.add.reduceat(term, first)
+                moment -= np.add.reduceat(shifted, first)
+            self.moments[k - 1, target] += moment
         self._add_direct(w, q if charged else None, m, cells)
 
     def _add_direct(self, w, q, m, cells) -> None:
