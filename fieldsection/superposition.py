@@ -340,12 +340,15 @@ def _size(mesh, elements: np.ndarray) -> np.ndarray:
 
 
 def _vertex_box(mesh, elements: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The lower and upper corners of the box around the vertices of ``elements`` (a mask); the vertices marked
-    in a mask, not sorted out by np.unique (a second at a million elements)."""
+    """The lower and upper corners of the box around the nodes of ``elements`` (a mask): their vertices and, on a
+    curved mesh, their mid-edge nodes (numbered after the vertices), which may bulge beyond them. The nodes are
+    marked in a mask, not sorted out by np.unique (a second at a million elements)."""
     if elements.all():
         return mesh.p.min(axis=1), mesh.p.max(axis=1)
     used = np.zeros(mesh.p.shape[1], dtype=bool)
     used[mesh.t[:, elements]] = True
+    if mesh.p.shape[1] > mesh.nvertices:
+        used[mesh.nvertices + mesh.t2f[:, elements]] = True
     xy = mesh.p[:, used]
     return xy.min(axis=1), xy.max(axis=1)
 
