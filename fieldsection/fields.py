@@ -21,6 +21,15 @@ _VERTICES = np.array([[0.0, 1.0, 0.0], [0.0, 0.0, 1.0]])
 _EDGES = ((0, 1), (1, 2), (0, 2))  # local vertex pairs of the three edges
 _GAUSS_S, _GAUSS_W = np.polynomial.legendre.leggauss(5)
 _GAUSS_S, _GAUSS_W = 0.5 * (_GAUSS_S + 1.0), 0.5 * _GAUSS_W  # on [0, 1]
+#: each local edge's direction in reference coordinates, from its first vertex to its second: (3 edges, 2)
+EDGE_DIRECTIONS = np.stack([_VERTICES[:, b] - _VERTICES[:, a] for a, b in _EDGES])
+
+
+def edge_points(s: np.ndarray) -> np.ndarray:
+    """Reference points at fractions ``s`` (q,) along each of the three local edges, edge after edge: (2, 3q)
+    (one basis at all of them costs about as much as at one edge's)."""
+    starts = np.stack([_VERTICES[:, a] for a, _ in _EDGES])
+    return (starts[:, :, None] + EDGE_DIRECTIONS[:, :, None] * s[None, None, :]).transpose(1, 0, 2).reshape(2, -1)
 
 
 @dataclass(frozen=True)
@@ -132,9 +141,7 @@ def outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.nd
         raise ValueError("local_vertices must name two different local vertices of each element")
     # one basis at the Gauss points of all three edges of every element involved (its set-up costs about as
     # much for nine points as for three), each (element, edge) then reads its own three
-    starts = np.stack([_VERTICES[:, a] for a, _ in _EDGES])  # (3 edges, 2)
-    directions = np.stack([_VERTICES[:, b] - _VERTICES[:, a] for a, b in _EDGES])
-    points = (starts[:, :, None] + directions[:, :, None] * _GAUSS_S[None, None, :]).transpose(1, 0, 2).reshape(2, -1)
+    points = edge_points(_GAUSS_S)
     tind, which = np.unique(elements, return_inverse=True)
     basis = Basis(mesh, problem.basis.elem, quadrature=(points, np.tile(_GAUSS_W, len(_EDGES))), elements=tind)
     q = len(_GAUSS_S)
@@ -142,7 +149,7 @@ def outward_flux(solution: Solution, elements: np.ndarray, local_vertices: np.nd
     rows = which[:, None]
     grad = gradient_at_points(basis, solution.potential)[:, rows, columns]  # (2, n, q)
     jacobian = basis.mapping.DF(points, tind=tind)[:, :, rows, columns]  # (2, 2, n, q)
-    tangent = np.einsum("ijnq,nj->inq", jacobian, directions[edge])  # dx/ds, |.| is the length element
+    tangent = np.einsum("ijnq,nj->inq", jacobian, EDGE_DIRECTIONS[edge])  # dx/ds, |.| is the length element
     normal = np.stack([tangent[1], -tangent[0]])
     sign = np.sign(np.einsum("inq,ni->n", normal, chord_normals))
     e_dot_n = -np.einsum("inq,inq->nq", grad, normal)

@@ -48,7 +48,7 @@ from scipy.spatial import cKDTree
 from skfem import Basis
 from skfem.quadrature import get_quadrature
 
-from .fields import _EDGES, _VERTICES, _is_linear, _linear_gradient, gradient_at_points
+from .fields import _EDGES, EDGE_DIRECTIONS, _is_linear, _linear_gradient, edge_points, gradient_at_points
 from .forked import helper_call
 from .mesh import EXTERIOR, linear_gradients_and_areas
 from .multipole import LogPotentialSum
@@ -124,9 +124,7 @@ def _curved_edge_quadrature(solution: Solution, elements: np.ndarray) -> list[tu
     much for nine points as for three)."""
     problem = solution.problem
     mesh = problem.section.mesh
-    starts = [_VERTICES[:, a] for a, _ in _EDGES]
-    directions = [_VERTICES[:, b] - _VERTICES[:, a] for a, b in _EDGES]
-    ref = np.hstack([start[:, None] + direction[:, None] * _GS[None, :] for start, direction in zip(starts, directions)])
+    ref = edge_points(_GS)
     basis = Basis(mesh, problem.basis.elem, quadrature=(ref, np.tile(_GW, 3)), elements=elements)
     grad = gradient_at_points(basis, solution.potential)  # (2, n, 3q)
     dofs = basis.element_dofs  # V at the points: the sum ``basis.interpolate`` does, without its derivatives
@@ -135,7 +133,7 @@ def _curved_edge_quadrature(solution: Solution, elements: np.ndarray) -> list[tu
     jacobian = basis.mapping.DF(ref, tind=elements)
     centroid = basis.mapping.F(np.array([[1 / 3], [1 / 3]]), tind=elements)[:, :, 0]
     out = []
-    for edge, direction in enumerate(directions):
+    for edge, direction in enumerate(EDGE_DIRECTIONS):
         part = slice(edge * EDGE_POINTS, (edge + 1) * EDGE_POINTS)
         tangent = np.einsum("ijnq,j->inq", jacobian[:, :, :, part], direction)
         length = np.hypot(tangent[0], tangent[1])
