@@ -90,9 +90,6 @@ class LogPotentialSum:
         """Sources at w: line charges q (C/m) and/or double-layer moments m (complex, C), either may be None."""
         if w.size == 0:
             return
-        charged = q is not None
-        if q is None:
-            q = np.zeros(w.size)
         self.count += w.size
         level = self.depth
         n = 2 ** level
@@ -100,16 +97,18 @@ class LogPotentialSum:
         i, j = self._ij(w.real, w.imag, level)
         cells = i * n + j
         order = np.argsort(cells, kind="stable")
-        w, q, cells, i, j = w[order], q[order], cells[order], i[order], j[order]
+        w, cells, i, j = w[order], cells[order], i[order], j[order]
+        q = None if q is None else q[order]
         m = None if m is None else m[order]
-        self.charge += np.bincount(cells, q, n * n)
+        if q is not None:
+            self.charge += np.bincount(cells, q, n * n)
         zeta = (w - self._centre(i, j, level)) / size
         # term k: (sum of q zeta^k) / k - sum of (m / size) zeta^(k - 1), each sum over a cell's run of sources
         # (the 1/k once per cell, not per source); one term at a time: a few arrays of the sources' size, not one
         # per term
         first = np.flatnonzero(np.r_[True, cells[1:] != cells[:-1]])
         target = cells[first]
-        power = zeta * q if charged else None  # q zeta^k, built up term by term in place
+        power = None if q is None else zeta * q  # q zeta^k, built up term by term in place
         shifted = None if m is None else m / size  # (m / size) zeta^(k - 1)
         for k in range(1, MULTIPOLE_ORDER + 1):
             moment = np.zeros(target.size, dtype=complex)
@@ -122,7 +121,7 @@ class LogPotentialSum:
                     shifted *= zeta
                 moment -= np.add.reduceat(shifted, first)
             self.moments[k - 1, target] += moment
-        self._add_direct(w, q if charged else None, m, cells)
+        self._add_direct(w, q, m, cells)
 
     def _add_direct(self, w, q, m, cells) -> None:
         """Direct sums over the sources (sorted by cell) in the nine finest cells around each probe: per cell that
